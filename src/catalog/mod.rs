@@ -1,0 +1,1 @@
+//! catalog (to be filled in).

@@ -1,0 +1,1 @@
+//! Linear matter power spectrum (to be filled in).

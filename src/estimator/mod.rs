@@ -1,0 +1,1 @@
+//! estimator (to be filled in).

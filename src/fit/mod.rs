@@ -1,0 +1,1 @@
+//! fit (to be filled in).

@@ -1,0 +1,1 @@
+//! geometry (to be filled in).

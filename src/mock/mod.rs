@@ -1,0 +1,1 @@
+//! mock (to be filled in).
