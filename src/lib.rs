@@ -3,6 +3,7 @@
 //!
 //! Data flow (one direction): catalog -> geometry -> pairs -> estimator -> fit -> inference,
 //! with cosmology feeding geometry and fit, and report writing outputs at the edges.
+pub mod app;
 pub mod catalog;
 pub mod cosmology;
 pub mod error;

@@ -14,3 +14,6 @@ pub use table::DistanceTable;
 
 /// Speed of light in km/s (exact, SI definition).
 pub const C_KM_S: f64 = 299_792.458;
+
+#[cfg(test)]
+mod tests;

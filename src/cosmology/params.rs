@@ -139,7 +139,7 @@ impl Cosmology {
         let mut z = 0.0;
         while z <= 10.0 {
             let e2 = self.e2(z);
-            if !(e2 > 0.0) || !e2.is_finite() {
+            if e2.is_nan() || e2 <= 0.0 || !e2.is_finite() {
                 return Err(Error::input(format!(
                     "cosmology is unphysical: E(z)^2 = {e2:.3e} <= 0 at z = {z:.2} (omega_k = {}, Omega_m = {:.4})",
                     self.omega_k,
@@ -157,7 +157,7 @@ impl Cosmology {
         const SIGMA_SB: f64 = 5.670374419e-8; // W m^-2 K^-4
         const C: f64 = 299_792_458.0; // m/s
         const G: f64 = 6.67430e-11; // m^3 kg^-1 s^-2
-        const MPC_M: f64 = 3.085_677_581_491_367_3e22;
+        const MPC_M: f64 = 3.085_677_581_491_367e22;
         let h100 = 100.0e3 / MPC_M; // 100 km/s/Mpc in s^-1
         let rho_crit_h2 = 3.0 * h100 * h100 / (8.0 * std::f64::consts::PI * G); // kg/m^3
         let rho_gamma = 4.0 * SIGMA_SB * self.t_cmb.powi(4) / C.powi(3);

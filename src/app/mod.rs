@@ -1,0 +1,19 @@
+//! Command implementations behind the thin CLI in src/main.rs. Each function takes plain option
+//! structs, does the work through the library modules, and writes its outputs atomically.
+pub mod distances;
+pub mod inspect;
+
+/// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.
+pub fn resolve_threads(flag: Option<usize>) -> usize {
+    if let Some(n) = flag.filter(|&n| n > 0) {
+        return n;
+    }
+    if let Some(n) = std::env::var("SLURM_CPUS_PER_TASK")
+        .ok()
+        .and_then(|v| v.trim().parse::<usize>().ok())
+        .filter(|&n| n > 0)
+    {
+        return n;
+    }
+    std::thread::available_parallelism().map_or(1, |n| n.get())
+}
