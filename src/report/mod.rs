@@ -1,1 +1,2 @@
-//! report (to be filled in).
+//! Report outputs.
+pub mod plots;
