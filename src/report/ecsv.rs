@@ -86,11 +86,24 @@ const YAML_WORDS: [&str; 12] = [
     "true", "false", "yes", "no", "on", "off", "null", "y", "n", "nan", "inf", "~",
 ];
 
-fn is_plain_name(s: &str) -> bool {
+/// Identifier-like names: safe as a field of the space-delimited name line.
+fn is_identifier(s: &str) -> bool {
     let mut ch = s.chars();
     matches!(ch.next(), Some(c) if c.is_ascii_alphabetic() || c == '_')
         && ch.all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-' || c == '.')
-        && !YAML_WORDS.contains(&s.to_ascii_lowercase().as_str())
+}
+
+/// Names YAML reads as plain strings without quotes.
+fn is_plain_name(s: &str) -> bool {
+    is_identifier(s) && !YAML_WORDS.contains(&s.to_ascii_lowercase().as_str())
+}
+
+fn yaml_key(s: &str) -> String {
+    if is_plain_name(s) {
+        s.to_string()
+    } else {
+        json_str(s)
+    }
 }
 
 /// Data float: shortest round-trip representation.
@@ -170,11 +183,7 @@ fn block_map(m: &Map<String, Value>, indent: usize, out: &mut String) {
     for (k, v) in m {
         out.push_str("# ");
         out.push_str(&" ".repeat(indent));
-        if is_plain_name(k) {
-            out.push_str(k);
-        } else {
-            out.push_str(&json_str(k));
-        }
+        out.push_str(&yaml_key(k));
         out.push(':');
         match v {
             Value::Object(inner) if !inner.is_empty() => {
@@ -208,7 +217,7 @@ pub fn to_ecsv_string(t: &Table) -> Result<String> {
     let n = t.n_rows();
     let mut out = String::from("# %ECSV 1.0\n# ---\n# datatype:\n");
     for c in &t.columns {
-        if !is_plain_name(&c.name) {
+        if !is_identifier(&c.name) {
             return Err(Error::other(format!(
                 "ecsv: column name '{}' must start with a letter or '_' and contain only \
                  letters, digits, '_', '-', '.'",
@@ -224,7 +233,7 @@ pub fn to_ecsv_string(t: &Table) -> Result<String> {
         }
         out.push_str(&format!(
             "# - {{name: {}, datatype: {}}}\n",
-            c.name,
+            yaml_key(&c.name),
             c.data.datatype()
         ));
     }
@@ -604,7 +613,8 @@ mod tests {
         assert_eq!(lines[1], "# ---");
         assert_eq!(lines[2], "# datatype:");
         assert_eq!(lines[3], "# - {name: s, datatype: float64}");
-        assert_eq!(lines[5], "# - {name: n, datatype: int64}");
+        // 'n' is quoted: YAML 1.1 lists it as a boolean word.
+        assert_eq!(lines[5], "# - {name: \"n\", datatype: int64}");
         assert_eq!(lines[6], "# - {name: npairs, datatype: uint64}");
         assert_eq!(lines[7], "# - {name: label, datatype: string}");
         assert_eq!(lines[8], "# meta:");
