@@ -18,14 +18,13 @@ pub mod zeff;
 mod tests;
 
 pub use covariance::{
-    cholesky, hartlap_factor, inverse_spd, jackknife_covariance, mock_precision,
-    sample_covariance,
+    cholesky, hartlap_factor, inverse_spd, jackknife_covariance, mock_precision, sample_covariance,
 };
 pub use multipoles::{legendre, legendre_bin_integral, multipoles};
 pub use norm::{auto_norm, cross_norm, split_auto_norm, PairNorm, WeightSums};
 pub use rebin::{collapse_mu, rebin_mu_groups, rebin_s_edges, rebin_s_groups};
 pub use xi::{
-    analytic_pair_fraction, landy_szalay, landy_szalay_jackknife, landy_szalay_values,
-    natural_box, LsNorms, XiResult,
+    analytic_pair_fraction, landy_szalay, landy_szalay_jackknife, landy_szalay_values, natural_box,
+    LsNorms, XiResult,
 };
 pub use zeff::effective_redshift;

@@ -103,7 +103,9 @@ impl WeightSums {
             .chain(self.region_sum_w2.iter().copied());
         for v in all {
             if !v.is_finite() {
-                return Err(Error::input(format!("{what}: weight sum is not finite ({v})")));
+                return Err(Error::input(format!(
+                    "{what}: weight sum is not finite ({v})"
+                )));
             }
         }
         Ok(())
@@ -136,12 +138,7 @@ pub fn auto_norm(a: &WeightSums) -> Result<PairNorm> {
     Ok(PairNorm {
         total: auto(a.sum_w, a.sum_w2),
         without_region: (0..a.n_regions())
-            .map(|k| {
-                auto(
-                    a.sum_w - a.region_sum_w[k],
-                    a.sum_w2 - a.region_sum_w2[k],
-                )
-            })
+            .map(|k| auto(a.sum_w - a.region_sum_w[k], a.sum_w2 - a.region_sum_w2[k]))
             .collect(),
     })
 }

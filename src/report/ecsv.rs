@@ -311,7 +311,9 @@ fn parse_block(
             )));
         }
         let (k, rest) = split_key(text).ok_or_else(|| {
-            Error::input(format!("{src}: line {ln}: expected 'key: value' in the meta header"))
+            Error::input(format!(
+                "{src}: line {ln}: expected 'key: value' in the meta header"
+            ))
         })?;
         *i += 1;
         let rest = rest.trim();
@@ -324,7 +326,9 @@ fn parse_block(
             }
         } else {
             serde_json::from_str(rest).map_err(|e| {
-                Error::input(format!("{src}: line {ln}: cannot read meta value for '{k}': {e}"))
+                Error::input(format!(
+                    "{src}: line {ln}: cannot read meta value for '{k}': {e}"
+                ))
             })?
         };
         m.insert(k, v);
@@ -377,7 +381,10 @@ pub fn parse_ecsv(text: &str, src: &str) -> Result<Table> {
     let bad = |ln: usize, m: String| Error::input(format!("{src}: line {ln}: {m}"));
     let all: Vec<&str> = text.lines().collect();
     if all.first().map(|l| l.trim_end()) != Some("# %ECSV 1.0") {
-        return Err(bad(1, "not an ECSV 1.0 file (expected '# %ECSV 1.0')".into()));
+        return Err(bad(
+            1,
+            "not an ECSV 1.0 file (expected '# %ECSV 1.0')".into(),
+        ));
     }
     if all.get(1).map(|l| l.trim_end()) != Some("# ---") {
         return Err(bad(2, "expected '# ---'".into()));
@@ -414,23 +421,36 @@ pub fn parse_ecsv(text: &str, src: &str) -> Result<Table> {
                         .trim()
                         .strip_prefix('{')
                         .and_then(|s| s.strip_suffix('}'))
-                        .ok_or_else(|| bad(ln, format!("expected '{{name: .., datatype: ..}}', found '{t}'")))?;
+                        .ok_or_else(|| {
+                            bad(
+                                ln,
+                                format!("expected '{{name: .., datatype: ..}}', found '{t}'"),
+                            )
+                        })?;
                     let (mut name, mut dt) = (None, None);
                     for part in inner.split(',') {
                         let (k2, v2) = part
                             .split_once(':')
                             .ok_or_else(|| bad(ln, format!("bad column description '{t}'")))?;
-                        let v2 = v2.trim().trim_matches(|c| c == '"' || c == '\'').to_string();
+                        let v2 = v2
+                            .trim()
+                            .trim_matches(|c| c == '"' || c == '\'')
+                            .to_string();
                         match k2.trim() {
                             "name" => name = Some(v2),
                             "datatype" => dt = Some(v2),
                             _ => {}
                         }
                     }
-                    let name = name.ok_or_else(|| bad(ln, "column description without name".into()))?;
-                    let dt = dt.ok_or_else(|| bad(ln, format!("column '{name}' has no datatype")))?;
+                    let name =
+                        name.ok_or_else(|| bad(ln, "column description without name".into()))?;
+                    let dt =
+                        dt.ok_or_else(|| bad(ln, format!("column '{name}' has no datatype")))?;
                     if !["float64", "int64", "uint64", "string"].contains(&dt.as_str()) {
-                        return Err(bad(ln, format!("column '{name}': unsupported datatype '{dt}'")));
+                        return Err(bad(
+                            ln,
+                            format!("column '{name}': unsupported datatype '{dt}'"),
+                        ));
                     }
                     cols.push((name, dt));
                     i += 1;
@@ -537,7 +557,14 @@ mod tests {
             columns: vec![
                 Column::f64(
                     "s",
-                    vec![-0.0, 1e-300, f64::NAN, f64::INFINITY, f64::NEG_INFINITY, 0.1],
+                    vec![
+                        -0.0,
+                        1e-300,
+                        f64::NAN,
+                        f64::INFINITY,
+                        f64::NEG_INFINITY,
+                        0.1,
+                    ],
                 ),
                 Column::f64(
                     "xi_0",
@@ -621,13 +648,18 @@ mod tests {
         assert!(lines.contains(&"#   \"true\": \"key that YAML would read as a bool\""));
         assert!(lines.contains(&"#     tiny: 1.0e-300"));
         assert!(lines.contains(&"#     big: 1.0e+20"));
-        let schema = lines.iter().position(|l| *l == "# schema: astropy-2.0").unwrap();
+        let schema = lines
+            .iter()
+            .position(|l| *l == "# schema: astropy-2.0")
+            .unwrap();
         assert_eq!(lines[schema + 1], "s xi_0 n npairs label");
         assert!(lines[schema + 2].starts_with("-0.0 0.3333333333333333 "));
         assert!(lines[schema + 3].contains("\"with space\""));
         assert!(lines[schema + 4].starts_with("nan "));
         assert!(lines[schema + 5].contains("\"#hash\""));
-        assert!(lines.iter().all(|l| l.starts_with("# ") || !l.starts_with('#')));
+        assert!(lines
+            .iter()
+            .all(|l| l.starts_with("# ") || !l.starts_with('#')));
     }
 
     #[test]
@@ -647,7 +679,10 @@ mod tests {
         assert!(e.to_string().contains("old.ecsv: line 1"));
         let short = "# %ECSV 1.0\n# ---\n# datatype:\n# - {name: a, datatype: float64}\n# - {name: b, datatype: float64}\na b\n1.0\n";
         let e = parse_ecsv(short, "s.ecsv").unwrap_err();
-        assert!(e.to_string().contains("line 7: 1 fields, expected 2"), "{e}");
+        assert!(
+            e.to_string().contains("line 7: 1 fields, expected 2"),
+            "{e}"
+        );
     }
 
     #[test]

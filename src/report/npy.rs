@@ -76,9 +76,15 @@ pub fn encode_npy(a: &NpyArray) -> Result<Vec<u8>> {
     out.extend_from_slice(&hlen.to_le_bytes());
     out.extend_from_slice(header.as_bytes());
     match &a.data {
-        NpyData::F64(v) => v.iter().for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
-        NpyData::I64(v) => v.iter().for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
-        NpyData::U64(v) => v.iter().for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
+        NpyData::F64(v) => v
+            .iter()
+            .for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
+        NpyData::I64(v) => v
+            .iter()
+            .for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
+        NpyData::U64(v) => v
+            .iter()
+            .for_each(|x| out.extend_from_slice(&x.to_le_bytes())),
     }
     Ok(out)
 }
@@ -225,7 +231,9 @@ mod tests {
                 data,
             };
             let bytes = encode_npy(&a).unwrap();
-            assert!(std::str::from_utf8(&bytes[10..70]).unwrap().contains("'shape': (4,)"));
+            assert!(std::str::from_utf8(&bytes[10..70])
+                .unwrap()
+                .contains("'shape': (4,)"));
             assert_eq!(decode_npy(&bytes, "mem").unwrap(), a);
         }
     }
@@ -243,7 +251,10 @@ mod tests {
         })
         .unwrap();
         let e = decode_npy(&good[..good.len() - 1], "f.npy").unwrap_err();
-        assert!(matches!(e, Error::Input(_)) && e.to_string().contains("f.npy"), "{e}");
+        assert!(
+            matches!(e, Error::Input(_)) && e.to_string().contains("f.npy"),
+            "{e}"
+        );
         assert!(decode_npy(b"garbage", "g.npy").is_err());
     }
 }
