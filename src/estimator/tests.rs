@@ -244,8 +244,8 @@ fn poisson() -> &'static Poisson {
 }
 
 /// Expected DD pairs and the Poisson variance of the Landy-Szalay estimator per bin:
-/// 1/DD_expected (Landy & Szalay 1993, ApJ 412, 64, sec. 4, unclustered limit with infinite
-/// randoms), times (1 + N_D/N_R)^2 for finite randoms (shot noise of DR and RR, derived:
+/// 1/DD_expected (Landy & Szalay 1993, ApJ 412, 64, unclustered limit with infinite randoms;
+/// section number not checked), times (1 + N_D/N_R)^2 for finite randoms (shot noise of DR and RR, derived:
 /// var = 2/(N_D^2 G) + 4/(N_D N_R G) + 2/(N_R^2 G) for pair probability G per bin).
 fn poisson_variance(p: &Poisson) -> Vec<f64> {
     let nd = p.d.w.len() as f64;
