@@ -230,7 +230,10 @@ mod tests {
             let got = fft.forward(&real).unwrap();
             let want = naive_dft(&real, n);
             for (g, w) in got.iter().zip(&want) {
-                assert!((g - w).norm() < 1e-10 * (1.0 + w.norm()), "n={n}: {g} vs {w}");
+                assert!(
+                    (g - w).norm() < 1e-10 * (1.0 + w.norm()),
+                    "n={n}: {g} vs {w}"
+                );
             }
         }
     }

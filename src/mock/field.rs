@@ -134,15 +134,20 @@ pub(crate) fn lognormal_density(
 
     // 4. White noise, one independent stream per x-plane; colour it; exponentiate.
     let mut noise = vec![0.0f64; n * n * n];
-    noise.par_chunks_mut(n * n).enumerate().for_each(|(i, plane)| {
-        let mut rng = stream_rng(seed, PURPOSE_NOISE, i as u64);
-        for v in plane.iter_mut() {
-            *v = StandardNormal.sample(&mut rng);
-        }
-    });
+    noise
+        .par_chunks_mut(n * n)
+        .enumerate()
+        .for_each(|(i, plane)| {
+            let mut rng = stream_rng(seed, PURPOSE_NOISE, i as u64);
+            for v in plane.iter_mut() {
+                *v = StandardNormal.sample(&mut rng);
+            }
+        });
     let mut w = fft.forward(&noise)?;
     drop(noise);
-    w.par_iter_mut().zip(amp.par_iter()).for_each(|(c, a)| *c *= *a);
+    w.par_iter_mut()
+        .zip(amp.par_iter())
+        .for_each(|(c, a)| *c *= *a);
     drop(amp);
     let mut rho = fft.inverse(w)?;
     let half_var = 0.5 * sigma2;

@@ -87,10 +87,15 @@ pub(crate) struct Region {
 
 #[derive(Debug, Clone)]
 enum Shape {
-    Cap { cos_r: f64 },
+    Cap {
+        cos_r: f64,
+    },
     /// Gnomonic projection about `center`: great circles map to straight lines, so the
     /// planar even-odd test on the projected vertices is exact for great-circle edges.
-    Polygon { verts: Vec<V3>, proj: Vec<(f64, f64)> },
+    Polygon {
+        verts: Vec<V3>,
+        proj: Vec<(f64, f64)>,
+    },
 }
 
 impl Region {
@@ -292,8 +297,13 @@ mod tests {
         // The edge between (0,10) and (20,10) is a great circle whose highest point, at RA 10,
         // has tan(dec) = tan(10 deg)/cos(10 deg) (spherical trigonometry, closed form): 10.154 deg.
         let sq = [(0.0, -10.0), (20.0, -10.0), (20.0, 10.0), (0.0, 10.0)];
-        let top = (10f64.to_radians().tan() / 10f64.to_radians().cos()).atan().to_degrees();
-        for r in [poly(&sq), poly(&sq.iter().rev().copied().collect::<Vec<_>>())] {
+        let top = (10f64.to_radians().tan() / 10f64.to_radians().cos())
+            .atan()
+            .to_degrees();
+        for r in [
+            poly(&sq),
+            poly(&sq.iter().rev().copied().collect::<Vec<_>>()),
+        ] {
             assert!(r.contains(&unit_vector(10.0, 0.0)));
             assert!(r.contains(&unit_vector(10.0, top - 0.01)));
             assert!(!r.contains(&unit_vector(10.0, top + 0.01)));
@@ -367,7 +377,10 @@ mod tests {
         let mut checked = 0;
         for a in 0..60 {
             for b in 0..60 {
-                let p = unit_vector(130.0 + 40.0 * a as f64 / 59.0, 15.0 + 40.0 * b as f64 / 59.0);
+                let p = unit_vector(
+                    130.0 + 40.0 * a as f64 / 59.0,
+                    15.0 + 40.0 * b as f64 / 59.0,
+                );
                 let ang = dot(&p, &c).clamp(-1.0, 1.0).acos().to_degrees();
                 if (ang - rad).abs() > 0.01 {
                     assert_eq!(pg.contains(&p), cap.contains(&p), "at angle {ang}");

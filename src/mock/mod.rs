@@ -248,7 +248,10 @@ pub fn lognormal_box_with_info(
         )));
     }
     if !(cfg.nbar.is_finite() && cfg.nbar > 0.0) {
-        return Err(Error::input(format!("mock nbar = {} must be positive", cfg.nbar)));
+        return Err(Error::input(format!(
+            "mock nbar = {} must be positive",
+            cfg.nbar
+        )));
     }
     let n = cfg.n_grid;
     let (rho, stats) = field::lognormal_density(power, cfg.bias, n, cfg.box_size, cfg.seed)?;
@@ -314,8 +317,7 @@ fn poisson(rng: &mut ChaCha12Rng, mean: f64) -> Result<u64> {
     if mean <= 0.0 {
         return Ok(0);
     }
-    let d = Poisson::new(mean)
-        .map_err(|e| Error::other(format!("Poisson mean {mean}: {e}")))?;
+    let d = Poisson::new(mean).map_err(|e| Error::other(format!("Poisson mean {mean}: {e}")))?;
     Ok(d.sample(rng) as u64)
 }
 
@@ -426,8 +428,16 @@ pub fn lognormal_survey_with_info(
         let theta = c[a].clamp(-1.0, 1.0).acos();
         let cmax = (theta - rb).max(0.0).cos();
         let cmin = (theta + rb).min(std::f64::consts::PI).cos();
-        hi[a] = if cmax > 0.0 { survey.chi_max * cmax } else { survey.chi_min * cmax };
-        lo[a] = if cmin < 0.0 { survey.chi_max * cmin } else { survey.chi_min * cmin };
+        hi[a] = if cmax > 0.0 {
+            survey.chi_max * cmax
+        } else {
+            survey.chi_min * cmax
+        };
+        lo[a] = if cmin < 0.0 {
+            survey.chi_max * cmin
+        } else {
+            survey.chi_min * cmin
+        };
     }
     let extent = (0..3).map(|a| hi[a] - lo[a]).fold(0.0, f64::max);
     // Pad by one cell's worth and 2% so no survey point sits on the periodic seam.
@@ -444,7 +454,9 @@ pub fn lognormal_survey_with_info(
         if r <= half_diag {
             -1.0
         } else {
-            (rb + (half_diag / r).asin()).min(std::f64::consts::PI).cos()
+            (rb + (half_diag / r).asin())
+                .min(std::f64::consts::PI)
+                .cos()
         }
     };
     let planes: Vec<Result<[Vec<f64>; 3]>> = rho
@@ -523,7 +535,9 @@ pub fn lognormal_survey_with_info(
     }
     let n_rand = n_rand_f as usize;
     if n_rand > 0 && survey.region.fill_fraction() < 1e-6 {
-        return Err(Error::input("mock footprint is too small to sample randoms"));
+        return Err(Error::input(
+            "mock footprint is too small to sample randoms",
+        ));
     }
     let total = cdf[NR];
     let chunks: Vec<[Vec<f64>; 3]> = (0..n_rand.div_ceil(RANDOM_CHUNK))
@@ -540,7 +554,11 @@ pub fn lognormal_survey_with_info(
                 let t = rng.gen::<f64>() * total;
                 let q = cdf.partition_point(|&v| v <= t).clamp(1, NR);
                 let seg = cdf[q] - cdf[q - 1];
-                let frac = if seg > 0.0 { (t - cdf[q - 1]) / seg } else { 0.5 };
+                let frac = if seg > 0.0 {
+                    (t - cdf[q - 1]) / seg
+                } else {
+                    0.5
+                };
                 let chi = survey.chi_min + (q as f64 - 1.0 + frac) * dchi;
                 let z = survey
                     .table
