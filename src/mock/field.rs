@@ -85,7 +85,7 @@ pub(crate) fn lognormal_density(
         .into_iter()
         .fold(f64::INFINITY, f64::min)
         / volume;
-    if !(min_xi_g > -1.0) {
+    if min_xi_g.is_nan() || min_xi_g <= -1.0 {
         return Err(Error::input(format!(
             "lognormal mock: b^2 xi(r) on the grid reaches {min_xi_g:.4} <= -1 (bias = {bias}); \
              no lognormal field has this correlation; lower the bias or use coarser cells"

@@ -134,12 +134,7 @@ impl Region {
                     check_angle(&format!("polygon vertex {k}"), *ra, *dec)?;
                 }
                 let verts: Vec<V3> = vertices.iter().map(|&(r, d)| unit_vector(r, d)).collect();
-                let mut sum = [0.0; 3];
-                for v in &verts {
-                    for a in 0..3 {
-                        sum[a] += v[a];
-                    }
-                }
+                let sum: V3 = std::array::from_fn(|a| verts.iter().map(|v| v[a]).sum());
                 if dot(&sum, &sum).sqrt() < 1e-9 {
                     return Err(Error::input(
                         "footprint polygon: vertices do not lie in one hemisphere",
@@ -259,11 +254,7 @@ impl Region {
         let ct = 1.0 - u * (1.0 - cos_b);
         let st = (1.0 - ct * ct).max(0.0).sqrt();
         let (sp, cp) = (2.0 * PI * v).sin_cos();
-        let mut p = [0.0; 3];
-        for a in 0..3 {
-            p[a] = ct * self.center[a] + st * (cp * self.e1[a] + sp * self.e2[a]);
-        }
-        p
+        std::array::from_fn(|a| ct * self.center[a] + st * (cp * self.e1[a] + sp * self.e2[a]))
     }
 
     /// Fraction of the bounding cap's area covered by the footprint (rejection efficiency).
@@ -361,10 +352,9 @@ mod tests {
         let verts: Vec<(f64, f64)> = (0..m)
             .map(|k| {
                 let ph = 2.0 * PI * k as f64 / m as f64;
-                let mut p = [0.0; 3];
-                for a in 0..3 {
-                    p[a] = r.cos() * c[a] + r.sin() * (ph.cos() * e1[a] + ph.sin() * e2[a]);
-                }
+                let p: V3 = std::array::from_fn(|a| {
+                    r.cos() * c[a] + r.sin() * (ph.cos() * e1[a] + ph.sin() * e2[a])
+                });
                 ra_dec(&p)
             })
             .collect();
