@@ -1,1 +1,7 @@
-//! fit (to be filled in).
+//! BAO fitting: Hankel transforms (FFTLog), the BAO correlation-function template and the
+//! isotropic alpha fit with its conversion to D_V/r_d.
+pub mod fftlog;
+pub mod isotropic;
+pub mod template;
+
+pub use fftlog::{xi_direct, FftLog};
