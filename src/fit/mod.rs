@@ -5,3 +5,4 @@ pub mod isotropic;
 pub mod template;
 
 pub use fftlog::{xi_direct, FftLog};
+pub use template::{template_power, BaoTemplate, TemplateOptions};
