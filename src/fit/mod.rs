@@ -5,4 +5,5 @@ pub mod isotropic;
 pub mod template;
 
 pub use fftlog::{xi_direct, FftLog};
+pub use isotropic::{dv_over_rd, fit_isotropic, DvOverRd, IsotropicFit, IsotropicOptions};
 pub use template::{template_power, BaoTemplate, TemplateOptions};
