@@ -8,7 +8,7 @@
 //!   the table is resampled on a uniform ln k grid, divided by the EH98 no-wiggle shape of the
 //!   cosmology, the log of that ratio is smoothed by a local-linear Gaussian kernel regression in
 //!   ln k (width 0.25 dex, wide enough to erase the acoustic wiggles whose period in ln k is
-//!   >= 0.5 where they matter, and local-linear so that a slope in the ratio is not biased at the
+//!   at least 0.5 where they matter, and local-linear so that a slope in the ratio is not biased at the
 //!   table edges), and the EH98 shape is multiplied back. Any smooth mismatch between the table
 //!   and the EH98 shape (massive neutrinos, different transfer code) survives the smoothing.
 //!
@@ -90,8 +90,7 @@ impl Eh98 {
         let beta_node = 8.41 * om.powf(0.435);
         // eqs. 26, 31
         let s_nw = 44.5 * (9.83 / om).ln() / (1.0 + 10.0 * ob.powf(0.75)).sqrt();
-        let alpha_gamma =
-            1.0 - 0.328 * (431.0 * om).ln() * fb + 0.38 * (22.3 * om).ln() * fb * fb;
+        let alpha_gamma = 1.0 - 0.328 * (431.0 * om).ln() * fb + 0.38 * (22.3 * om).ln() * fb * fb;
         Eh98 {
             h,
             theta,
@@ -144,8 +143,8 @@ impl Eh98 {
             return 1.0;
         }
         let ag = self.alpha_gamma;
-        let gamma_eff = self.om_h2 / self.h
-            * (ag + (1.0 - ag) / (1.0 + (0.43 * k * self.s_nw).powi(4)));
+        let gamma_eff =
+            self.om_h2 / self.h * (ag + (1.0 - ag) / (1.0 + (0.43 * k * self.s_nw).powi(4)));
         let q = k / self.h * self.theta * self.theta / gamma_eff;
         let l0 = (2.0 * E + 1.8 * q).ln();
         let c0 = 14.2 + 731.0 / (1.0 + 62.5 * q);
@@ -285,7 +284,7 @@ impl LinearPower {
 
     /// Linear power with wiggles at k [h/Mpc].
     pub fn p_lin(&self, k: f64) -> f64 {
-        if !(k > 0.0) {
+        if k.is_nan() || k <= 0.0 {
             return 0.0;
         }
         match &self.source {
@@ -299,7 +298,7 @@ impl LinearPower {
 
     /// Smooth (no-wiggle) partner at k [h/Mpc].
     pub fn p_nowiggle(&self, k: f64) -> f64 {
-        if !(k > 0.0) {
+        if k.is_nan() || k <= 0.0 {
             return 0.0;
         }
         match &self.source {
@@ -340,7 +339,9 @@ fn interp_loglog(ln_k: &[f64], ln_p: &[f64], k: f64) -> f64 {
     } else if x >= ln_k[n - 1] {
         n - 2
     } else {
-        ln_k.partition_point(|&v| v <= x).saturating_sub(1).min(n - 2)
+        ln_k.partition_point(|&v| v <= x)
+            .saturating_sub(1)
+            .min(n - 2)
     };
     let t = (x - ln_k[i]) / (ln_k[i + 1] - ln_k[i]);
     (ln_p[i] + t * (ln_p[i + 1] - ln_p[i])).exp()
@@ -386,7 +387,9 @@ fn smooth_partner(ln_k: &[f64], ln_p: &[f64], c: &Cosmology) -> Vec<f64> {
             (s2 * t0 - s1 * t1) / det
         }
     };
-    ln_k.iter().map(|&x| smooth_at(x) + shape(x.exp())).collect()
+    ln_k.iter()
+        .map(|&x| smooth_at(x) + shape(x.exp()))
+        .collect()
 }
 
 /// Parse a two-column power table (see [`LinearPower::from_file`]).
@@ -553,7 +556,11 @@ mod tests {
                 k * k * k * lp.p_lin(k) * w * w
             };
             let var = simpson(f, (1e-5f64).ln(), (300.0f64).ln(), 400_000) / (2.0 * PI * PI);
-            assert!((var.sqrt() / s8 - 1.0).abs() < 1e-4, "{} vs {s8}", var.sqrt());
+            assert!(
+                (var.sqrt() / s8 - 1.0).abs() < 1e-4,
+                "{} vs {s8}",
+                var.sqrt()
+            );
         }
     }
 
@@ -598,7 +605,9 @@ mod tests {
         let e = LinearPower::from_file(Path::new("/nonexistent/pk.txt"), &Cosmology::planck18())
             .unwrap_err();
         assert!(e.to_string().contains("/nonexistent/pk.txt"));
-        assert!(LinearPower::from_table(vec![0.1, 0.2], vec![1.0, 1.0], &Cosmology::planck18())
-            .is_err());
+        assert!(
+            LinearPower::from_table(vec![0.1, 0.2], vec![1.0, 1.0], &Cosmology::planck18())
+                .is_err()
+        );
     }
 }

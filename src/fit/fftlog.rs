@@ -98,7 +98,9 @@ impl FftLog {
             )));
         }
         if !(q > 0.0 && q < 2.0) {
-            return Err(Error::input(format!("FFTLog: bias q = {q} must be in (0, 2)")));
+            return Err(Error::input(format!(
+                "FFTLog: bias q = {q} must be in (0, 2)"
+            )));
         }
         let (a, b) = (k_min.ln(), k_max.ln());
         let dl = (b - a) / (n - 1) as f64;

@@ -98,7 +98,7 @@ fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
         for k in 0..j {
             d -= l[j * n + k] * l[j * n + k];
         }
-        if !(d > 0.0) || !d.is_finite() {
+        if !(d.is_finite() && d > 0.0) {
             return None;
         }
         dmax = dmax.max(d);
@@ -171,12 +171,12 @@ impl Gls<'_> {
         let mut wa = vec![[0.0; 4]; n];
         let mut wx = vec![0.0; n];
         for i in 0..n {
-            for j in 0..n {
+            for (j, (cj, xj)) in cols.iter().zip(&self.xi).enumerate() {
                 let wij = self.w[i * n + j];
                 for p in 0..4 {
-                    wa[i][p] += wij * cols[j][p];
+                    wa[i][p] += wij * cj[p];
                 }
-                wx[i] += wij * self.xi[j];
+                wx[i] += wij * xj;
             }
         }
         let x_w_x: f64 = (0..n).map(|i| self.xi[i] * wx[i]).sum();
@@ -217,7 +217,7 @@ fn cholesky_loose(a: &[f64], n: usize) -> Option<Vec<f64>> {
         for k in 0..j {
             d -= l[j * n + k] * l[j * n + k];
         }
-        if !(d > 1e-300) || !d.is_finite() {
+        if !(d.is_finite() && d > 1e-300) {
             return None;
         }
         let dj = d.sqrt();
@@ -247,7 +247,7 @@ fn refine_minimum(alpha: &[f64], chi2: &[f64]) -> (usize, f64, f64, bool) {
     let (y0, y1, y2) = (chi2[i0 - 1], chi2[i0], chi2[i0 + 1]);
     let h = alpha[i0 + 1] - alpha[i0];
     let curv = y0 - 2.0 * y1 + y2;
-    if !(curv > 0.0) {
+    if curv.is_nan() || curv <= 0.0 {
         return (i0, alpha[i0], y1, false);
     }
     let off = 0.5 * h * (y0 - y2) / curv;
@@ -314,7 +314,7 @@ pub fn fit_isotropic(
         )));
     }
     let n_alpha = ((o.alpha_max - o.alpha_min) / o.alpha_step + 1e-9).floor() as usize + 1;
-    if n_alpha < 3 || n_alpha > 10_000_000 {
+    if !(3..=10_000_000).contains(&n_alpha) {
         return Err(Error::input(format!(
             "isotropic fit: alpha grid has {n_alpha} points; need between 3 and 1e7"
         )));
@@ -322,9 +322,9 @@ pub fn fit_isotropic(
     let in_fit: Vec<bool> = s.iter().map(|&v| v >= o.s_min && v <= o.s_max).collect();
     let idx: Vec<usize> = (0..n_all).filter(|&i| in_fit[i]).collect();
     if idx.is_empty() {
-        let (lo, hi) = s
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |a, &v| (a.0.min(v), a.1.max(v)));
+        let (lo, hi) = s.iter().fold((f64::INFINITY, f64::NEG_INFINITY), |a, &v| {
+            (a.0.min(v), a.1.max(v))
+        });
         return Err(Error::input(format!(
             "isotropic fit: fit range [{}, {}] Mpc/h contains no data bins (bins span [{lo}, {hi}])",
             o.s_min, o.s_max
@@ -448,8 +448,8 @@ pub fn fit_isotropic(
     }
     let mut upper_open = true;
     let mut alpha_hi = alpha_grid[n_alpha - 1];
-    for j in i0 + 1..n_alpha {
-        if chi2_grid[j] >= thr {
+    for (j, &c) in chi2_grid.iter().enumerate().skip(i0 + 1) {
+        if c >= thr {
             alpha_hi = cross(j - 1, j);
             upper_open = false;
             break;
@@ -477,7 +477,10 @@ pub fn fit_isotropic(
         t + p[1] + p[2] / sv + p[3] / (sv * sv)
     };
     let model: Vec<f64> = s.iter().map(|&v| eval(&par, alpha, false, v)).collect();
-    let model_nw: Vec<f64> = s.iter().map(|&v| eval(&par_nw, alpha_nw, true, v)).collect();
+    let model_nw: Vec<f64> = s
+        .iter()
+        .map(|&v| eval(&par_nw, alpha_nw, true, v))
+        .collect();
     Ok(IsotropicFit {
         alpha,
         sigma: 0.5 * (alpha_hi - alpha_lo),
@@ -597,7 +600,10 @@ mod tests {
 
     fn diag_inv(sig: &[f64]) -> Array2<f64> {
         let n = sig.len();
-        Array2::from_shape_fn((n, n), |(i, j)| if i == j { 1.0 / (sig[i] * sig[i]) } else { 0.0 })
+        Array2::from_shape_fn(
+            (n, n),
+            |(i, j)| if i == j { 1.0 / (sig[i] * sig[i]) } else { 0.0 },
+        )
     }
 
     /// Gauss-Jordan inverse with partial pivoting (independent of the Cholesky in the module).
@@ -651,7 +657,11 @@ mod tests {
             for icov in [diag_inv(&sig), icov_corr.clone()] {
                 let f = fit_isotropic(&s, &xi, &icov, template(), &IsotropicOptions::default())
                     .unwrap();
-                assert!((f.alpha - alpha).abs() < 1e-4, "alpha {alpha}: got {}", f.alpha);
+                assert!(
+                    (f.alpha - alpha).abs() < 1e-4,
+                    "alpha {alpha}: got {}",
+                    f.alpha
+                );
                 assert!(f.chi2_min < 1e-6, "{}", f.chi2_min);
                 assert!((f.b2 - 1.7).abs() < 1e-3, "{}", f.b2);
                 assert_eq!(f.n_bins, 20);
@@ -706,15 +716,21 @@ mod tests {
         let sig: Vec<f64> = errors(&s).iter().map(|v| v * 2.0).collect();
         let (alpha, b2) = (1.0, 1.5);
         let xi = truth(&s, alpha, b2, [1e-4, -0.02, 1.0]);
-        let f = fit_isotropic(&s, &xi, &diag_inv(&sig), template(), &IsotropicOptions::default())
-            .unwrap();
+        let f = fit_isotropic(
+            &s,
+            &xi,
+            &diag_inv(&sig),
+            template(),
+            &IsotropicOptions::default(),
+        )
+        .unwrap();
         let keep: Vec<usize> = (0..s.len()).filter(|&i| f.in_fit[i]).collect();
         let h = 1e-4;
         let mut fm = Array2::<f64>::zeros((5, 5));
         for &i in &keep {
             let v = s[i];
-            let dxi = b2 * (template().xi((alpha + h) * v) - template().xi((alpha - h) * v))
-                / (2.0 * h);
+            let dxi =
+                b2 * (template().xi((alpha + h) * v) - template().xi((alpha - h) * v)) / (2.0 * h);
             let j = [dxi, template().xi(alpha * v), 1.0, 1.0 / v, 1.0 / (v * v)];
             for a in 0..5 {
                 for b in 0..5 {
@@ -723,7 +739,10 @@ mod tests {
             }
         }
         let sigma_fisher = invert(&fm)[[0, 0]].sqrt();
-        assert!(sigma_fisher > 0.005 && sigma_fisher < 0.05, "{sigma_fisher}");
+        assert!(
+            sigma_fisher > 0.005 && sigma_fisher < 0.05,
+            "{sigma_fisher}"
+        );
         assert!(
             (f.sigma / sigma_fisher - 1.0).abs() < 0.03,
             "fit {} (lo {} hi {}) vs Fisher {sigma_fisher}",
@@ -784,8 +803,15 @@ mod tests {
                 r * r / (sig[i] * sig[i])
             })
             .sum();
-        assert!((f.chi2_min - chi2).abs() < 1e-6 * chi2.max(1.0), "{} {chi2}", f.chi2_min);
-        assert!(f.chi2_grid.iter().all(|&c| (c - chi2).abs() < 1e-6 * chi2.max(1.0)));
+        assert!(
+            (f.chi2_min - chi2).abs() < 1e-6 * chi2.max(1.0),
+            "{} {chi2}",
+            f.chi2_min
+        );
+        assert!(f
+            .chi2_grid
+            .iter()
+            .all(|&c| (c - chi2).abs() < 1e-6 * chi2.max(1.0)));
         assert!(f.lower_open && f.upper_open);
         // the model is the polynomial alone
         for &i in &keep {
@@ -812,15 +838,44 @@ mod tests {
         check(fit_isotropic(&s, &bad, &ic, t, &o), "bin 20");
         check(fit_isotropic(&s[..39], &xi, &ic, t, &o), "separations");
         check(
-            fit_isotropic(&s, &xi, &ic, t, &IsotropicOptions { s_min: 300.0, s_max: 400.0, ..o }),
+            fit_isotropic(
+                &s,
+                &xi,
+                &ic,
+                t,
+                &IsotropicOptions {
+                    s_min: 300.0,
+                    s_max: 400.0,
+                    ..o
+                },
+            ),
             "no data bins",
         );
         check(
-            fit_isotropic(&s, &xi, &ic, t, &IsotropicOptions { s_min: 90.0, s_max: 110.0, ..o }),
+            fit_isotropic(
+                &s,
+                &xi,
+                &ic,
+                t,
+                &IsotropicOptions {
+                    s_min: 90.0,
+                    s_max: 110.0,
+                    ..o
+                },
+            ),
             "bins in the fit range",
         );
         check(
-            fit_isotropic(&s, &xi, &ic, t, &IsotropicOptions { alpha_step: -1.0, ..o }),
+            fit_isotropic(
+                &s,
+                &xi,
+                &ic,
+                t,
+                &IsotropicOptions {
+                    alpha_step: -1.0,
+                    ..o
+                },
+            ),
             "alpha grid",
         );
         let mut sing = ic.clone();
@@ -834,7 +889,17 @@ mod tests {
         // template too short for alpha * s
         let s_far: Vec<f64> = (0..40).map(|i| 250.0 + 5.0 * i as f64).collect();
         check(
-            fit_isotropic(&s_far, &xi, &ic, t, &IsotropicOptions { s_min: 250.0, s_max: 450.0, ..o }),
+            fit_isotropic(
+                &s_far,
+                &xi,
+                &ic,
+                t,
+                &IsotropicOptions {
+                    s_min: 250.0,
+                    s_max: 450.0,
+                    ..o
+                },
+            ),
             "template covers",
         );
     }
@@ -843,9 +908,18 @@ mod tests {
     fn no_wiggle_data_has_no_detection_and_result_serialises() {
         let s = bins();
         let sig = errors(&s);
-        let xi: Vec<f64> = s.iter().map(|&v| 1.5 * template().xi_nowiggle(v) + 1e-4).collect();
-        let f = fit_isotropic(&s, &xi, &diag_inv(&sig), template(), &IsotropicOptions::default())
-            .unwrap();
+        let xi: Vec<f64> = s
+            .iter()
+            .map(|&v| 1.5 * template().xi_nowiggle(v) + 1e-4)
+            .collect();
+        let f = fit_isotropic(
+            &s,
+            &xi,
+            &diag_inv(&sig),
+            template(),
+            &IsotropicOptions::default(),
+        )
+        .unwrap();
         assert!(f.chi2_nowiggle_min < 1e-6);
         assert!(f.detection_sigma < 1e-3, "{}", f.detection_sigma);
         let js = serde_json::to_string(&f).unwrap();
@@ -857,8 +931,14 @@ mod tests {
         let s = bins();
         let sig = errors(&s);
         let xi = truth(&s, 1.02, 1.5, [0.0; 3]);
-        let f = fit_isotropic(&s, &xi, &diag_inv(&sig), template(), &IsotropicOptions::default())
-            .unwrap();
+        let f = fit_isotropic(
+            &s,
+            &xi,
+            &diag_inv(&sig),
+            template(),
+            &IsotropicOptions::default(),
+        )
+        .unwrap();
         let c = Cosmology::planck18();
         let z = 0.55;
         let d = dv_over_rd(&f, &c, z, c.r_d()).unwrap();

@@ -124,8 +124,7 @@ impl BaoTemplate {
         }
         let fl = FftLog::new(o.k_min, o.k_max, o.n_fft, o.q)?;
         let r = fl.r();
-        if !(o.s_min > 0.0 && o.s_max > o.s_min && o.s_min >= r[1] && o.s_max <= r[r.len() - 2])
-        {
+        if !(o.s_min > 0.0 && o.s_max > o.s_min && o.s_min >= r[1] && o.s_max <= r[r.len() - 2]) {
             return Err(Error::input(format!(
                 "template: s range [{}, {}] Mpc/h must lie inside the transform grid [{:.3e}, {:.3e}]",
                 o.s_min,
@@ -191,7 +190,9 @@ mod tests {
     #[test]
     fn spline_reproduces_cubic_interior() {
         // a natural spline is exact for straight lines, close for smooth functions
-        let x: Vec<f64> = (0..50).map(|i| 1.0 + 0.1 * i as f64 + 0.01 * (i % 3) as f64).collect();
+        let x: Vec<f64> = (0..50)
+            .map(|i| 1.0 + 0.1 * i as f64 + 0.01 * (i % 3) as f64)
+            .collect();
         let y: Vec<f64> = x.iter().map(|&t| 2.0 * t - 1.0).collect();
         let s = Spline::new(x.clone(), y);
         assert!((s.eval(2.345) - 3.69).abs() < 1e-12);
@@ -212,8 +213,15 @@ mod tests {
             let d = xi_direct(pfun, s, 1e-8, 1e2);
             let pnw = |k: f64| lp.p_nowiggle(k) * (-k * k).exp();
             let dnw = xi_direct(pnw, s, 1e-8, 1e2);
-            assert!((t.xi(s) - d).abs() < 1e-4 * d.abs() + 2e-7, "s={s}: {} {d}", t.xi(s));
-            assert!((t.xi_nowiggle(s) - dnw).abs() < 1e-4 * dnw.abs() + 2e-7, "s={s}");
+            assert!(
+                (t.xi(s) - d).abs() < 1e-4 * d.abs() + 2e-7,
+                "s={s}: {} {d}",
+                t.xi(s)
+            );
+            assert!(
+                (t.xi_nowiggle(s) - dnw).abs() < 1e-4 * dnw.abs() + 2e-7,
+                "s={s}"
+            );
         }
         assert!(t.xi(0.5).is_nan() && t.xi(500.0).is_nan());
     }
