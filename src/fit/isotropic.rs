@@ -428,7 +428,7 @@ pub fn fit_isotropic(
         alpha = alpha_grid[i0];
         let r = gls.solve(alpha, false);
         par = r.0;
-        chi2_min = r.1.min(chi2_min);
+        chi2_min = r.1;
         clamped = r.2;
     }
     let thr = chi2_min + 1.0;
@@ -458,12 +458,12 @@ pub fn fit_isotropic(
     alpha_lo = alpha_lo.min(alpha);
     alpha_hi = alpha_hi.max(alpha);
 
-    let (_, alpha_nw, chi2_nw_min, _) = refine_minimum(&alpha_grid, &chi2_nw_grid);
+    // no-wiggle minimum: exact chi2 at the refined alpha, or at the grid point if lower
+    let (inw, alpha_nw, _, _) = refine_minimum(&alpha_grid, &chi2_nw_grid);
     let (par_nw, c_nw_ref, _) = gls.solve(alpha_nw, true);
-    let (chi2_nw_min, alpha_nw, par_nw) = if c_nw_ref <= chi2_nw_min + 1e-9 {
-        (c_nw_ref.min(chi2_nw_min), alpha_nw, par_nw)
+    let (chi2_nw_min, alpha_nw, par_nw) = if c_nw_ref <= chi2_nw_grid[inw] {
+        (c_nw_ref, alpha_nw, par_nw)
     } else {
-        let (inw, _, _, _) = refine_minimum(&alpha_grid, &chi2_nw_grid);
         let r = gls.solve(alpha_grid[inw], true);
         (r.1, alpha_grid[inw], r.0)
     };
@@ -662,7 +662,7 @@ mod tests {
                     "alpha {alpha}: got {}",
                     f.alpha
                 );
-                assert!(f.chi2_min < 1e-6, "{}", f.chi2_min);
+                assert!(f.chi2_min >= 0.0 && f.chi2_min < 1e-6, "{}", f.chi2_min);
                 assert!((f.b2 - 1.7).abs() < 1e-3, "{}", f.b2);
                 assert_eq!(f.n_bins, 20);
                 assert_eq!(f.dof, 15);
