@@ -419,18 +419,14 @@ pub fn fit_isotropic(
     let chi2_grid: Vec<f64> = alpha_grid.iter().map(|&a| gls.solve(a, false).1).collect();
     let chi2_nw_grid: Vec<f64> = alpha_grid.iter().map(|&a| gls.solve(a, true).1).collect();
 
-    let (i0, mut alpha, mut chi2_min, at_edge) = refine_minimum(&alpha_grid, &chi2_grid);
+    let (i0, alpha_ref, _, at_edge) = refine_minimum(&alpha_grid, &chi2_grid);
     // exact chi2 at the refined alpha; keep the grid point if it is lower
-    let (mut par, c_ref, mut clamped) = gls.solve(alpha, false);
-    if c_ref <= chi2_grid[i0] {
-        chi2_min = c_ref;
+    let r_ref = gls.solve(alpha_ref, false);
+    let (alpha, (par, chi2_min, clamped)) = if r_ref.1 <= chi2_grid[i0] {
+        (alpha_ref, r_ref)
     } else {
-        alpha = alpha_grid[i0];
-        let r = gls.solve(alpha, false);
-        par = r.0;
-        chi2_min = r.1;
-        clamped = r.2;
-    }
+        (alpha_grid[i0], gls.solve(alpha_grid[i0], false))
+    };
     let thr = chi2_min + 1.0;
     let cross = |j_in: usize, j_out: usize| -> f64 {
         let (c0, c1) = (chi2_grid[j_in], chi2_grid[j_out]);
