@@ -226,7 +226,8 @@ impl LinearPower {
 
     /// Tabulated spectrum: k in h/Mpc (strictly increasing, positive), P in (Mpc/h)^3
     /// (positive). The table amplitude is used as given (not renormalised to sigma8); `c`
-    /// supplies the EH98 no-wiggle shape used to derive the smooth partner.
+    /// supplies the EH98 no-wiggle shape used to derive the smooth partner. Outside the table
+    /// both spectra continue as power laws through the two end points (log-log extrapolation).
     pub fn from_table(k: Vec<f64>, p: Vec<f64>, c: &Cosmology) -> Result<LinearPower> {
         if k.len() != p.len() {
             return Err(Error::input(format!(
