@@ -153,9 +153,13 @@ fn pair_mu<const K: u8>(a: &Pts, i: usize, b: &Pts, j: usize, q: f64, dz: f64) -
             0.0
         }
     } else if K == FLAT {
-        mu_flat(a.c[0][i], a.c[1][i], a.c[2][i], b.c[0][j], b.c[1][j], b.c[2][j])
+        mu_flat(
+            a.c[0][i], a.c[1][i], a.c[2][i], b.c[0][j], b.c[1][j], b.c[2][j],
+        )
     } else {
-        mu_flat(a.f[0][i], a.f[1][i], a.f[2][i], b.f[0][j], b.f[1][j], b.f[2][j])
+        mu_flat(
+            a.f[0][i], a.f[1][i], a.f[2][i], b.f[0][j], b.f[1][j], b.f[2][j],
+        )
     }
 }
 
@@ -183,7 +187,10 @@ impl Binner {
     pub fn new(qe: Vec<f64>, n_mu: usize) -> Self {
         let n_s = qe.len() - 1;
         let range = qe[n_s] - qe[0];
-        let min_w = qe.windows(2).map(|w| w[1] - w[0]).fold(f64::INFINITY, f64::min);
+        let min_w = qe
+            .windows(2)
+            .map(|w| w[1] - w[0])
+            .fold(f64::INFINITY, f64::min);
         let cells = (4.0 * range / min_w).ceil();
         let mut b = Binner {
             qe,
@@ -473,7 +480,11 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                     0
                 };
                 qs[k] = q;
-                bins[k] = if valid { is.wrapping_mul(n_mu) + im } else { nb };
+                bins[k] = if valid {
+                    is.wrapping_mul(n_mu) + im
+                } else {
+                    nb
+                };
                 any |= valid;
             }
             if any {
@@ -561,7 +572,9 @@ fn pick_fast<const K: u8, const MU: bool>(simd: Simd) -> LeafFn {
     match simd {
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx512f")` returned true.
-        Simd::Avx512 => |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU>(a, b, lp, g, bn, acc) },
+        Simd::Avx512 => {
+            |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU>(a, b, lp, g, bn, acc) }
+        }
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx2")` returned true.
         Simd::Avx2 => |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU>(a, b, lp, g, bn, acc) },

@@ -200,8 +200,7 @@ fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
                     "curved metric: curvature radius must be finite and > 0, got {radius}"
                 )));
             }
-            if matches!(cfg.metric, Metric::Closed { .. })
-                && s_max >= std::f64::consts::PI * radius
+            if matches!(cfg.metric, Metric::Closed { .. }) && s_max >= std::f64::consts::PI * radius
             {
                 return Err(crate::Error::input(format!(
                     "closed metric: largest separation edge {s_max} must be < pi R = {}",
@@ -241,8 +240,13 @@ fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Res
     }
     for i in 0..n {
         let z = p.redshift.get(i).copied().unwrap_or(0.0);
-        for (col, v) in [("x", p.x[i]), ("y", p.y[i]), ("z", p.z[i]), ("w", p.w[i]), ("redshift", z)]
-        {
+        for (col, v) in [
+            ("x", p.x[i]),
+            ("y", p.y[i]),
+            ("z", p.z[i]),
+            ("w", p.w[i]),
+            ("redshift", z),
+        ] {
             if !v.is_finite() {
                 return Err(crate::Error::input(format!(
                     "{name}: row {i}, column {col}: value {v} is not finite"
@@ -537,7 +541,16 @@ pub(crate) fn count_impl(
     kind: KernelKind,
 ) -> crate::Result<PairCounts> {
     let (geo, bn) = check_config(cfg)?;
-    let pa0 = prepare(a, if b.is_some() { "catalogue A" } else { "catalogue" }, cfg, &geo)?;
+    let pa0 = prepare(
+        a,
+        if b.is_some() {
+            "catalogue A"
+        } else {
+            "catalogue"
+        },
+        cfg,
+        &geo,
+    )?;
     let pb0 = match b {
         Some(b) => Some(prepare(b, "catalogue B", cfg, &geo)?),
         None => None,

@@ -69,7 +69,9 @@ pub fn kmeans_sky_regions(
         }
         if best[pick] <= 0.0 {
             // rounding landed on an existing centre: take the farthest point instead
-            pick = (0..n).max_by(|&x, &y| best[x].total_cmp(&best[y])).unwrap_or(0);
+            pick = (0..n)
+                .max_by(|&x, &y| best[x].total_cmp(&best[y]))
+                .unwrap_or(0);
         }
         let c = pts[pick];
         for (b, p) in best.iter_mut().zip(&pts) {
