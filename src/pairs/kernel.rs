@@ -339,6 +339,7 @@ impl Acc {
 }
 
 /// Add the terms of a counted pair.
+#[allow(clippy::too_many_arguments)]
 #[inline(always)]
 fn record<const K: u8>(
     acc: &mut Acc,

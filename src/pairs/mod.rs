@@ -211,7 +211,11 @@ fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
     }
     let geo = geo_of(&cfg.metric);
     let qe: Vec<f64> = b.s_edges.iter().map(|&s| geo.q_of_s(s)).collect();
-    if qe.windows(2).any(|w| !(w[1] > w[0])) || !qe.iter().all(|q| q.is_finite()) {
+    if qe
+        .windows(2)
+        .any(|w| w[1].partial_cmp(&w[0]) != Some(std::cmp::Ordering::Greater))
+        || !qe.iter().all(|q| q.is_finite())
+    {
         return Err(crate::Error::input(
             "binning: separation edges too close to be told apart in this metric",
         ));
@@ -314,6 +318,7 @@ fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Res
             let r = geo.radius;
             let closed = geo.kind == CLO;
             let mut c = [vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]];
+            #[allow(clippy::needless_range_loop)]
             for i in 0..n {
                 let chi = (p.x[i] * p.x[i] + p.y[i] * p.y[i] + p.z[i] * p.z[i]).sqrt();
                 if closed && chi >= std::f64::consts::PI * r {
