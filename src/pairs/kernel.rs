@@ -247,16 +247,19 @@ impl Binner {
     }
 }
 
+/// Number of interleaved sub-histograms: pair (i, j) adds into sub-histogram j mod SUB. This
+/// breaks the add-latency chains when consecutive pairs hit the same bin, and because the
+/// assignment depends only on j (not on the lane width) both kernels sum identically.
+pub(crate) const SUB: usize = 8;
+
 /// Per-task f64 accumulators. A task (a top-level node pair) is summed in a fixed pair order and
 /// then converted to fixed point once, so totals do not depend on how tasks are spread over
-/// threads or shards.
+/// threads or shards. Each bin holds [count, w1w2, w1w2 s, w1w2 (z1+z2)/2]; counts are exact in
+/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a trash bin for rejected lanes.
 pub(crate) struct Acc {
     nb: usize,
     nreg: usize,
-    cnt: Vec<u64>,
-    w: Vec<f64>,
-    ws: Vec<f64>,
-    wz: Vec<f64>,
+    h: Vec<[f64; 4]>,
     rb: Vec<f64>,
     ro: Vec<f64>,
     rdirty: Vec<bool>,
@@ -268,10 +271,7 @@ impl Acc {
         Acc {
             nb,
             nreg,
-            cnt: vec![0; nb],
-            w: vec![0.0; nb],
-            ws: vec![0.0; nb],
-            wz: vec![0.0; nb],
+            h: vec![[0.0; 4]; SUB * (nb + 1)],
             rb: vec![0.0; nb * nreg],
             ro: vec![0.0; nb * nreg],
             rdirty: vec![false; nb * nreg],
@@ -281,7 +281,7 @@ impl Acc {
 
     /// Bytes held by one accumulator (for the memory estimate).
     pub fn bytes(nb: usize, nreg: usize) -> u64 {
-        (nb * 32 + nb * nreg * 25) as u64
+        (SUB * (nb + 1) * 32 + nb * nreg * 25) as u64
     }
 
     #[inline(always)]
@@ -292,39 +292,48 @@ impl Acc {
         }
     }
 
+    /// Add one pair's terms to bin `bin` (or the trash bin `nb`) of sub-histogram `j % SUB`.
     #[inline(always)]
-    fn add(&mut self, bin: usize, ww: f64, wsv: f64, wzv: f64, r1: u32, r2: u32) {
-        self.cnt[bin] += 1;
-        self.w[bin] += ww;
-        self.ws[bin] += wsv;
-        self.wz[bin] += wzv;
-        if self.nreg > 0 {
-            let s1 = r1 as usize * self.nb + bin;
-            if r1 == r2 {
-                self.touch(s1);
-                self.rb[s1] += ww;
-            } else {
-                let s2 = r2 as usize * self.nb + bin;
-                self.touch(s1);
-                self.touch(s2);
-                self.ro[s1] += ww;
-                self.ro[s2] += ww;
-            }
+    fn add(&mut self, j: usize, bin: usize, ww: f64, wsv: f64, wzv: f64) {
+        let h = &mut self.h[(j % SUB) * (self.nb + 1) + bin];
+        h[0] += 1.0;
+        h[1] += ww;
+        h[2] += wsv;
+        h[3] += wzv;
+    }
+
+    #[inline(always)]
+    fn add_regions(&mut self, bin: usize, ww: f64, r1: u32, r2: u32) {
+        let s1 = r1 as usize * self.nb + bin;
+        if r1 == r2 {
+            self.touch(s1);
+            self.rb[s1] += ww;
+        } else {
+            let s2 = r2 as usize * self.nb + bin;
+            self.touch(s1);
+            self.touch(s2);
+            self.ro[s1] += ww;
+            self.ro[s2] += ww;
         }
     }
 
     /// Convert the task's sums to fixed point, add them to `out`, and reset.
     pub fn flush(&mut self, out: &mut PairCounts) {
+        let st = self.nb + 1;
         for b in 0..self.nb {
-            if self.cnt[b] != 0 {
-                out.npairs[b] += self.cnt[b];
-                out.wpairs[b] += to_fixed(self.w[b]);
-                out.ws[b] += to_fixed(self.ws[b]);
-                out.wz[b] += to_fixed(self.wz[b]);
-                self.cnt[b] = 0;
-                self.w[b] = 0.0;
-                self.ws[b] = 0.0;
-                self.wz[b] = 0.0;
+            let mut t = [0.0f64; 4];
+            for k in 0..SUB {
+                let h = &mut self.h[k * st + b];
+                for (x, y) in t.iter_mut().zip(h.iter()) {
+                    *x += *y;
+                }
+                *h = [0.0; 4];
+            }
+            if t[0] != 0.0 {
+                out.npairs[b] += t[0] as u64;
+                out.wpairs[b] += to_fixed(t[1]);
+                out.ws[b] += to_fixed(t[2]);
+                out.wz[b] += to_fixed(t[3]);
             }
         }
         for &s in &self.rlist {
@@ -354,12 +363,10 @@ fn record<const K: u8>(
     let s = s_of_q::<K>(q, radius);
     let ww = a.w[i] * b.w[j];
     let zz = 0.5 * (a.z[i] + b.z[j]);
-    let (r1, r2) = if acc.nreg > 0 {
-        (a.reg[i], b.reg[j])
-    } else {
-        (0, 0)
-    };
-    acc.add(bin, ww, ww * s, ww * zz, r1, r2);
+    acc.add(j, bin, ww, ww * s, ww * zz);
+    if acc.nreg > 0 {
+        acc.add_regions(bin, ww, a.reg[i], b.reg[j]);
+    }
 }
 
 /// Reference evaluation of one pair: plain compares and a binary search for the bin.
@@ -444,13 +451,19 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
     let (l, hl) = (g.box_l, g.half_l);
     for i in lp.a0..lp.a1 {
         let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
+        let (aw, az_) = (a.w[i], a.z[i]);
         let mut j = if lp.same { i + 1 } else { lp.b0 };
         while j + L <= lp.b1 {
             let bx: &[f64; L] = b.c[0][j..j + L].try_into().unwrap();
             let by: &[f64; L] = b.c[1][j..j + L].try_into().unwrap();
             let bz: &[f64; L] = b.c[2][j..j + L].try_into().unwrap();
             let bt: &[f64; L] = b.c[3][j..j + L].try_into().unwrap();
+            let bw: &[f64; L] = b.w[j..j + L].try_into().unwrap();
+            let bzz: &[f64; L] = b.z[j..j + L].try_into().unwrap();
             let mut qs = [0.0f64; L];
+            let mut ss = [0.0f64; L];
+            let mut wws = [0.0f64; L];
+            let mut wzs = [0.0f64; L];
             let mut bins = [0usize; L];
             let mut any = false;
             for k in 0..L {
@@ -481,6 +494,12 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                     0
                 };
                 qs[k] = q;
+                if K == FLAT || K == PER {
+                    ss[k] = s_of_q::<K>(q, 0.0);
+                }
+                let ww = aw * bw[k];
+                wws[k] = ww;
+                wzs[k] = ww * (0.5 * (az_ + bzz[k]));
                 bins[k] = if valid {
                     is.wrapping_mul(n_mu) + im
                 } else {
@@ -490,8 +509,16 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
             }
             if any {
                 for k in 0..L {
-                    if bins[k] < nb {
-                        record::<K>(acc, g.radius, a, i, b, j + k, bins[k], qs[k]);
+                    let s = if K == FLAT || K == PER {
+                        ss[k]
+                    } else if bins[k] < nb {
+                        s_of_q::<K>(qs[k], g.radius)
+                    } else {
+                        0.0
+                    };
+                    acc.add(j + k, bins[k], wws[k], wws[k] * s, wzs[k]);
+                    if acc.nreg > 0 && bins[k] < nb {
+                        acc.add_regions(bins[k], wws[k], a.reg[i], b.reg[j + k]);
                     }
                 }
             }

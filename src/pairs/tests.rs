@@ -518,7 +518,11 @@ fn memory_estimate_grows_with_inputs() {
 fn kernel_rate() {
     let mut c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
     c.threads = 1;
-    let (p, _, _) = shell(200_000, 14, 9.0);
+    let n = std::env::var("PAIRS_RATE_N")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(40_000);
+    let (p, _, _) = shell(n, 14, 9.0);
     for kind in [
         KernelKind::Reference,
         KernelKind::Fast,
