@@ -241,6 +241,26 @@ impl Binner {
         b.wrapping_sub((q < self.qe[b]) as usize)
     }
 
+    /// Table cell of q as an f64 (clamped), computed in the vectorisable lane loop.
+    #[inline(always)]
+    pub fn cell(&self, q: f64) -> f64 {
+        ((q - self.qe[0]) * self.inv_h).max(0.0).min(self.last_cell)
+    }
+
+    /// `s_bin_table` split at the cell: requires `cell` from `Binner::cell` and qlo <= q < qhi.
+    #[inline(always)]
+    pub fn s_bin_from_cell(&self, cell: f64, q: f64) -> usize {
+        let t = cell as usize;
+        debug_assert!(t < self.table.len());
+        // SAFETY: cell is clamped to [0, table.len() - 1] (NaN casts to 0); table entries are
+        // <= n_s - 1, so b + 1 <= n_s and, after the upward step, b <= n_s, all within qe.
+        unsafe {
+            let b = *self.table.get_unchecked(t) as usize;
+            let b = b + (q >= *self.qe.get_unchecked(b + 1)) as usize;
+            b.wrapping_sub((q < *self.qe.get_unchecked(b)) as usize)
+        }
+    }
+
     #[inline(always)]
     pub fn mu_bin(&self, mu: f64) -> usize {
         ((mu * self.n_mu as f64) as usize).min(self.n_mu - 1)
@@ -336,6 +356,9 @@ impl Acc {
                 out.wz[b] += to_fixed(t[3]);
             }
         }
+        for k in 0..SUB {
+            self.h[k * st + self.nb] = [0.0; 4]; // trash bin
+        }
         for &s in &self.rlist {
             out.region_both[s] += to_fixed(self.rb[s]);
             out.region_one[s] += to_fixed(self.ro[s]);
@@ -401,6 +424,16 @@ pub(crate) fn ref_pair<const K: u8, const MU: bool>(
 pub(crate) enum KernelKind {
     Reference,
     Fast,
+    /// Test instrument: bin 0 gets one count per leaf pair and w1w2 = number of pair tests.
+    #[cfg(test)]
+    Tally,
+}
+
+#[cfg(test)]
+fn leaf_tally(_: &Pts, _: &Pts, lp: LeafPair, _: &Geo, _: &Binner, acc: &mut Acc) {
+    let (na, nb) = (lp.a1 - lp.a0, lp.b1 - lp.b0);
+    let tests = if lp.same { na * (na - 1) / 2 } else { na * nb };
+    acc.add(0, 0, tests as f64, 0.0, 0.0);
 }
 
 /// A leaf pair: index ranges into `a` and `b`; `same` means a == b (auto count of one leaf with
@@ -461,16 +494,18 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
             let bw: &[f64; L] = b.w[j..j + L].try_into().unwrap();
             let bzz: &[f64; L] = b.z[j..j + L].try_into().unwrap();
             let mut qs = [0.0f64; L];
+            let mut cells = [0.0f64; L];
+            let mut ims = [0usize; L];
             let mut ss = [0.0f64; L];
             let mut wws = [0.0f64; L];
             let mut wzs = [0.0f64; L];
-            let mut bins = [0usize; L];
-            let mut any = false;
+            let mut ok = [false; L];
+            // pass 1: pure lane arithmetic (vectorisable: no table loads, no branches)
             for k in 0..L {
                 let (q, dz) = pair_q::<K>(ax, ay, az, at, bx[k], by[k], bz[k], bt[k], l, hl);
-                let valid = q >= qlo && q < qhi;
-                let is = bn.s_bin_table(q);
-                let im = if MU {
+                ok[k] = q >= qlo && q < qhi;
+                cells[k] = bn.cell(q);
+                if MU {
                     let mu = if K == PER {
                         if q > 0.0 {
                             dz.abs() / q.sqrt()
@@ -489,10 +524,8 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                             b.f[2][j + k],
                         )
                     };
-                    bn.mu_bin(mu)
-                } else {
-                    0
-                };
+                    ims[k] = bn.mu_bin(mu);
+                }
                 qs[k] = q;
                 if K == FLAT || K == PER {
                     ss[k] = s_of_q::<K>(q, 0.0);
@@ -500,25 +533,23 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                 let ww = aw * bw[k];
                 wws[k] = ww;
                 wzs[k] = ww * (0.5 * (az_ + bzz[k]));
-                bins[k] = if valid {
-                    is.wrapping_mul(n_mu) + im
-                } else {
-                    nb
-                };
-                any |= valid;
             }
-            if any {
+            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order;
+            // rejected lanes go to the trash bin `nb` without a branch (flat metrics)
+            if ok.iter().any(|&v| v) {
                 for k in 0..L {
+                    let found = bn.s_bin_from_cell(cells[k], qs[k]) * n_mu + ims[k];
+                    let bin = if ok[k] { found } else { nb };
                     let s = if K == FLAT || K == PER {
                         ss[k]
-                    } else if bins[k] < nb {
+                    } else if ok[k] {
                         s_of_q::<K>(qs[k], g.radius)
                     } else {
                         0.0
                     };
-                    acc.add(j + k, bins[k], wws[k], wws[k] * s, wzs[k]);
-                    if acc.nreg > 0 && bins[k] < nb {
-                        acc.add_regions(bins[k], wws[k], a.reg[i], b.reg[j + k]);
+                    acc.add(j + k, bin, wws[k], wws[k] * s, wzs[k]);
+                    if acc.nreg > 0 && ok[k] {
+                        acc.add_regions(bin, wws[k], a.reg[i], b.reg[j + k]);
                     }
                 }
             }
@@ -616,6 +647,8 @@ fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd) -> LeafFn {
         (KernelKind::Reference, true) => leaf_ref::<K, true>,
         (KernelKind::Fast, false) => pick_fast::<K, false>(simd),
         (KernelKind::Fast, true) => pick_fast::<K, true>(simd),
+        #[cfg(test)]
+        (KernelKind::Tally, _) => leaf_tally,
     }
 }
 

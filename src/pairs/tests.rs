@@ -523,6 +523,10 @@ fn kernel_rate() {
         .and_then(|v| v.parse().ok())
         .unwrap_or(40_000);
     let (p, _, _) = shell(n, 14, 9.0);
+    let tally = count_impl(&p, None, &c, KernelKind::Tally).unwrap();
+    let tests = from_fixed(tally.wpairs[0]);
+    println!("{} leaf pairs, {tests} pair tests", tally.npairs[0]);
+    println!("simd level: {:?}", super::kernel::Simd::detect());
     for kind in [
         KernelKind::Reference,
         KernelKind::Fast,
@@ -533,9 +537,9 @@ fn kernel_rate() {
         let r = count_impl(&p, None, &c, kind).unwrap();
         let dt = t.elapsed().as_secs_f64();
         println!(
-            "{kind:?}: {:.3} s, {} pairs counted",
-            dt,
-            r.npairs.iter().sum::<u64>()
+            "{kind:?}: {dt:.3} s, {} pairs counted, {:.1} M pair tests/s",
+            r.npairs.iter().sum::<u64>(),
+            tests / dt / 1e6
         );
     }
 }
