@@ -231,23 +231,14 @@ impl Binner {
         self.qe[1..self.n_s].partition_point(|&e| e <= q)
     }
 
-    /// Separation bin via the lookup table plus one exact compare each way. For q outside
-    /// [qlo, qhi) the result is meaningless (callers mask those lanes).
-    #[inline(always)]
-    pub fn s_bin_table(&self, q: f64) -> usize {
-        let t = ((q - self.qe[0]) * self.inv_h).max(0.0).min(self.last_cell) as usize;
-        let b = self.table[t] as usize;
-        let b = b + (q >= self.qe[b + 1]) as usize;
-        b.wrapping_sub((q < self.qe[b]) as usize)
-    }
-
     /// Table cell of q as an f64 (clamped), computed in the vectorisable lane loop.
     #[inline(always)]
     pub fn cell(&self, q: f64) -> f64 {
         ((q - self.qe[0]) * self.inv_h).max(0.0).min(self.last_cell)
     }
 
-    /// `s_bin_table` split at the cell: requires `cell` from `Binner::cell` and qlo <= q < qhi.
+    /// Separation bin from the table cell plus one exact compare each way (equals
+    /// `s_bin_exact`). Requires `cell` from `Binner::cell` and qlo <= q < qhi.
     #[inline(always)]
     pub fn s_bin_from_cell(&self, cell: f64, q: f64) -> usize {
         let t = cell as usize;
