@@ -340,7 +340,11 @@ fn bin_table_agrees_with_binary_search() {
             qs.extend([e, e.next_up(), e.next_down().max(qe[0])]);
         }
         for q in qs {
-            assert_eq!(bn.s_bin_from_cell(bn.cell(q), q), bn.s_bin_exact(q), "q = {q}");
+            assert_eq!(
+                bn.s_bin_from_cell(bn.cell(q), q),
+                bn.s_bin_exact(q),
+                "q = {q}"
+            );
         }
     }
 }
@@ -540,6 +544,24 @@ fn kernel_rate() {
             "{kind:?}: {dt:.3} s, {} pairs counted, {:.1} M pair tests/s",
             r.npairs.iter().sum::<u64>(),
             tests / dt / 1e6
+        );
+    }
+}
+
+/// Very uneven bins make the lookup table too large; the kernels then fall back to binary
+/// search and must still equal brute force.
+#[test]
+fn uneven_bins_without_table_equal_brute_force() {
+    for m in [Metric::Euclidean, Metric::Closed { radius: r_curv() }] {
+        let c = cfg(vec![0.0, 1e-3, 0.5, 60.0, 200.0], 2, m, 2);
+        let (geo, bn) = check_config(&c).unwrap();
+        assert!(!bn.table_ok, "{:?}", geo.kind);
+        let a = data_for(&m, 15, 900, 2);
+        assert_close(
+            &count_auto(&a, &c).unwrap(),
+            &brute_force_auto(&a, &c),
+            a.len(),
+            &format!("{m:?}"),
         );
     }
 }
