@@ -5,10 +5,13 @@
 //! (open). `q` is a strictly increasing function of the separation s, so bins are compared in
 //! q-space against transformed edges and s itself is only evaluated for counted pairs.
 //!
-//! Two leaf kernels live side by side: `leaf_ref` (plain loops) and `leaf_fast` (fixed-width
-//! lane chunks with a branch-free bin index, compiled for AVX-512 / AVX2 / portable code). Both
-//! evaluate each pair with the same floating-point expressions and add the pair terms to the
-//! accumulators in the same pair order, so they give bitwise identical results.
+//! Two leaf kernels live side by side: `leaf_ref` (plain loops, binary-search bin) and
+//! `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that auto-vectorises, then a
+//! lookup-table bin index with one exact compare each way and a branch-free scatter into
+//! interleaved sub-histograms), compiled for AVX-512 / AVX2 via `#[target_feature]` wrappers
+//! chosen at run time, or as portable code. Both evaluate each pair with the same floating-point
+//! expressions and add pair terms in the same order to the same sub-histogram, so they give
+//! bitwise identical results on every target.
 use super::counts::{to_fixed, PairCounts};
 
 pub(crate) const FLAT: u8 = 0;
@@ -529,7 +532,10 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
             // rejected lanes go to the trash bin `nb` without a branch (flat metrics)
             if ok.iter().any(|&v| v) {
                 for k in 0..L {
-                    let found = bn.s_bin_from_cell(cells[k], qs[k]) * n_mu + ims[k];
+                    let found = bn
+                        .s_bin_from_cell(cells[k], qs[k])
+                        .wrapping_mul(n_mu)
+                        .wrapping_add(ims[k]);
                     let bin = if ok[k] { found } else { nb };
                     let s = if K == FLAT || K == PER {
                         ss[k]
