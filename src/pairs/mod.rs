@@ -1,3 +1,655 @@
-//! Pair counting (to be filled in).
+//! Pair counting: exact weighted pair counts in separation (and mu) bins for flat, periodic,
+//! closed and open geometries.
+//!
+//! Engine: a KD-tree over leaf buckets per catalogue and a dual-tree traversal (Moore et al.
+//! 2001) that prunes node pairs whose conservative separation range misses [s_min, s_max). Node
+//! pairs that fall entirely into one bin are NOT counted wholesale: the w1 w2 s sum is not
+//! separable over node sums, so every surviving pair goes through a leaf kernel and all sums are
+//! exact per pair.
+//!
+//! Determinism: the traversal is split into a fixed list of top-level node pairs ("tasks")
+//! that depends only on the data and binning. Each task is summed in f64 in a fixed order and
+//! converted to fixed point once (`to_fixed`); integer totals are order-independent, so any
+//! thread count and any sharding (`shard = (k, N)` takes tasks k, k+N, ...) give bitwise the same
+//! merged result.
 mod counts;
+mod kernel;
+mod regions;
+mod tree;
+
+#[cfg(test)]
+mod tests;
+
 pub use counts::{from_fixed, to_fixed, Binning, PairCounts, FRAC_BITS};
+pub use regions::kmeans_sky_regions;
+
+use kernel::{Acc, Binner, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER};
+use rayon::prelude::*;
+use tree::{node_bounds, Tree};
+
+/// Points to count: comoving Cartesian positions in Mpc/h (observer at the origin for surveys),
+/// weights, redshift per object (0.0 for boxes; used for the z_eff sums; an empty vector means
+/// all zero), and optional region labels (empty = no regions).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct PointSet {
+    pub x: Vec<f64>,
+    pub y: Vec<f64>,
+    pub z: Vec<f64>,
+    pub w: Vec<f64>,
+    pub redshift: Vec<f64>,
+    pub region: Vec<u32>,
+}
+
+impl PointSet {
+    pub fn len(&self) -> usize {
+        self.x.len()
+    }
+    pub fn is_empty(&self) -> bool {
+        self.x.is_empty()
+    }
+}
+
+/// Geometry in which separations are measured.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Metric {
+    /// Flat survey or non-periodic Cartesian: s = |x1 - x2|; mu w.r.t. the pair midpoint line of
+    /// sight (x1 + x2)/2.
+    Euclidean,
+    /// Periodic box of side `box_size` (minimum image); line of sight = z axis. Requires
+    /// s_max < box_size/2.
+    Periodic { box_size: f64 },
+    /// Closed fiducial (Omega_k < 0) with curvature radius `radius` in Mpc/h.
+    Closed { radius: f64 },
+    /// Open fiducial (Omega_k > 0) with curvature radius `radius` in Mpc/h.
+    Open { radius: f64 },
+}
+
+/// What to count and how to split the work.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CountConfig {
+    pub binning: Binning,
+    pub metric: Metric,
+    /// Number of jackknife regions (0 = none); labels must be < n_regions.
+    pub n_regions: usize,
+    /// Worker threads (0 = all cores). Results do not depend on it.
+    pub threads: usize,
+    /// (k, N): count only the k-th of N deterministic parts (0-based); (0, 1) = everything.
+    pub shard: (usize, usize),
+}
+
+/// Unordered distinct pairs i < j of one catalogue.
+pub fn count_auto(p: &PointSet, cfg: &CountConfig) -> crate::Result<PairCounts> {
+    count_impl(p, None, cfg, KernelKind::Fast)
+}
+
+/// All pairs (i in a, j in b).
+pub fn count_cross(a: &PointSet, b: &PointSet, cfg: &CountConfig) -> crate::Result<PairCounts> {
+    count_impl(a, Some(b), cfg, KernelKind::Fast)
+}
+
+/// O(N^2) reference for `count_auto` with the same per-pair formulas and no tree.
+///
+/// # Panics
+/// On invalid input or configuration (it is a test reference; use `count_auto` for user data).
+pub fn brute_force_auto(p: &PointSet, cfg: &CountConfig) -> PairCounts {
+    brute_impl(p, None, cfg).expect("brute_force_auto: invalid input")
+}
+
+/// O(N^2) reference for `count_cross`.
+///
+/// # Panics
+/// On invalid input or configuration (it is a test reference; use `count_cross` for user data).
+pub fn brute_force_cross(a: &PointSet, b: &PointSet, cfg: &CountConfig) -> PairCounts {
+    brute_impl(a, Some(b), cfg).expect("brute_force_cross: invalid input")
+}
+
+/// Upper estimate of the extra bytes a count allocates at its peak (prepared copies of both
+/// catalogues, trees, the bin table, and per-thread accumulators), to compare with a memory limit
+/// before starting. `n_b = 0` for an auto count.
+pub fn memory_estimate_bytes(n_a: usize, n_b: usize, cfg: &CountConfig) -> u64 {
+    let curved = matches!(cfg.metric, Metric::Closed { .. } | Metric::Open { .. });
+    // coordinates (4 + 3 flat for curved mu), w, z, region, permutation, build scratch
+    let per_point: u64 =
+        8 * (4 + if curved && cfg.binning.n_mu > 1 { 3 } else { 0 } + 2) + 4 + 8 + 8 * 4;
+    let per_node: u64 = std::mem::size_of::<tree::Node>() as u64;
+    let n = (n_a + n_b) as u64;
+    let nodes = 4 * n / tree::LEAF_SIZE as u64 + 4;
+    let nb = cfg.binning.n_bins();
+    let nreg = cfg.n_regions;
+    let counts = (nb * (8 + 16 * 3) + 2 * 16 * nb * nreg) as u64;
+    let threads = if cfg.threads == 0 {
+        std::thread::available_parallelism()
+            .map(|v| v.get())
+            .unwrap_or(1)
+    } else {
+        cfg.threads
+    } as u64;
+    // rayon fold keeps a few accumulators per worker plus the reduction partials
+    let per_thread = 4 * (Acc::bytes(nb, nreg) + counts);
+    let table = 4 * (1u64 << 20);
+    let tasks = 64 * TASK_TARGET as u64;
+    n * per_point + nodes * per_node + table + tasks + threads * per_thread + counts
+}
+
+/// Number of top-level node pairs the traversal is cut into (fixed so the f64 grouping of sums,
+/// and therefore the bits of the result, never depend on threads or shards).
+const TASK_TARGET: usize = 4096;
+
+fn geo_of(metric: &Metric) -> Geo {
+    match *metric {
+        Metric::Euclidean => Geo {
+            kind: FLAT,
+            box_l: 0.0,
+            half_l: 0.0,
+            radius: 0.0,
+        },
+        Metric::Periodic { box_size } => Geo {
+            kind: PER,
+            box_l: box_size,
+            half_l: 0.5 * box_size,
+            radius: 0.0,
+        },
+        Metric::Closed { radius } => Geo {
+            kind: CLO,
+            box_l: 0.0,
+            half_l: 0.0,
+            radius,
+        },
+        Metric::Open { radius } => Geo {
+            kind: OPE,
+            box_l: 0.0,
+            half_l: 0.0,
+            radius,
+        },
+    }
+}
+
+/// Check the configuration and build the q-space binner.
+fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
+    let b = &cfg.binning;
+    let (k, n) = cfg.shard;
+    if n == 0 || k >= n {
+        return Err(crate::Error::input(format!(
+            "shard: need 0 <= k < N, got k = {k}, N = {n}"
+        )));
+    }
+    if b.n_s() == 0 || b.n_mu == 0 || b.s_edges.iter().any(|e| !e.is_finite() || *e < 0.0) {
+        return Err(crate::Error::input(
+            "binning: separation edges must be finite, >= 0, at least two; n_mu >= 1",
+        ));
+    }
+    let s_max = b.s_max();
+    match cfg.metric {
+        Metric::Euclidean => {}
+        Metric::Periodic { box_size } => {
+            if !(box_size.is_finite() && box_size > 0.0) {
+                return Err(crate::Error::input(format!(
+                    "periodic metric: box_size must be finite and > 0, got {box_size}"
+                )));
+            }
+            if s_max >= 0.5 * box_size {
+                return Err(crate::Error::input(format!(
+                    "periodic metric: largest separation edge {s_max} must be < box_size/2 = {}",
+                    0.5 * box_size
+                )));
+            }
+        }
+        Metric::Closed { radius } | Metric::Open { radius } => {
+            if !(radius.is_finite() && radius > 0.0) {
+                return Err(crate::Error::input(format!(
+                    "curved metric: curvature radius must be finite and > 0, got {radius}"
+                )));
+            }
+            if matches!(cfg.metric, Metric::Closed { .. }) && s_max >= std::f64::consts::PI * radius
+            {
+                return Err(crate::Error::input(format!(
+                    "closed metric: largest separation edge {s_max} must be < pi R = {}",
+                    std::f64::consts::PI * radius
+                )));
+            }
+        }
+    }
+    let geo = geo_of(&cfg.metric);
+    let qe: Vec<f64> = b.s_edges.iter().map(|&s| geo.q_of_s(s)).collect();
+    if qe
+        .windows(2)
+        .any(|w| w[1].partial_cmp(&w[0]) != Some(std::cmp::Ordering::Greater))
+        || !qe.iter().all(|q| q.is_finite())
+    {
+        return Err(crate::Error::input(
+            "binning: separation edges too close to be told apart in this metric",
+        ));
+    }
+    Ok((geo, Binner::new(qe, b.n_mu)))
+}
+
+/// Validate one catalogue and convert it to kernel layout (original order).
+fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Result<Pts> {
+    let n = p.x.len();
+    if n == 0 {
+        return Err(crate::Error::input(format!("{name}: catalogue is empty")));
+    }
+    for (col, len) in [("y", p.y.len()), ("z", p.z.len()), ("w", p.w.len())] {
+        if len != n {
+            return Err(crate::Error::input(format!(
+                "{name}: column {col} has {len} rows, x has {n}"
+            )));
+        }
+    }
+    if !p.redshift.is_empty() && p.redshift.len() != n {
+        return Err(crate::Error::input(format!(
+            "{name}: column redshift has {} rows, x has {n}",
+            p.redshift.len()
+        )));
+    }
+    for i in 0..n {
+        let z = p.redshift.get(i).copied().unwrap_or(0.0);
+        for (col, v) in [
+            ("x", p.x[i]),
+            ("y", p.y[i]),
+            ("z", p.z[i]),
+            ("w", p.w[i]),
+            ("redshift", z),
+        ] {
+            if !v.is_finite() {
+                return Err(crate::Error::input(format!(
+                    "{name}: row {i}, column {col}: value {v} is not finite"
+                )));
+            }
+        }
+    }
+    let mut reg = Vec::new();
+    if cfg.n_regions > 0 {
+        if p.region.len() != n {
+            return Err(crate::Error::input(format!(
+                "{name}: n_regions = {} but the region column has {} rows for {n} points",
+                cfg.n_regions,
+                p.region.len()
+            )));
+        }
+        if let Some((i, &r)) = p
+            .region
+            .iter()
+            .enumerate()
+            .find(|(_, &r)| r as usize >= cfg.n_regions)
+        {
+            return Err(crate::Error::input(format!(
+                "{name}: row {i}: region label {r} is out of range (n_regions = {})",
+                cfg.n_regions
+            )));
+        }
+        reg = p.region.clone();
+    }
+    let z = if p.redshift.is_empty() {
+        vec![0.0; n]
+    } else {
+        p.redshift.clone()
+    };
+    let mut pts = Pts {
+        w: p.w.clone(),
+        z,
+        reg,
+        ..Default::default()
+    };
+    match geo.kind {
+        FLAT => {
+            pts.c = [p.x.clone(), p.y.clone(), p.z.clone(), vec![0.0; n]];
+        }
+        PER => {
+            let l = geo.box_l;
+            let wrap = |v: &Vec<f64>| -> Vec<f64> {
+                v.iter()
+                    .map(|&x| {
+                        let r = x.rem_euclid(l);
+                        if r >= l {
+                            0.0
+                        } else {
+                            r
+                        }
+                    })
+                    .collect()
+            };
+            pts.c = [wrap(&p.x), wrap(&p.y), wrap(&p.z), vec![0.0; n]];
+        }
+        _ => {
+            // Curved: chi = |x|, u = x / chi. Closed: X = R sin(chi/R) u, t = 2R sin^2(chi/2R)
+            // (the 4-D sphere point (X, R cos(chi/R)) shifted by a constant in the 4th axis);
+            // open: X = R sinh(chi/R) u, t = 2R sinh^2(chi/2R) on the hyperboloid.
+            let r = geo.radius;
+            let closed = geo.kind == CLO;
+            let mut c = [vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]];
+            #[allow(clippy::needless_range_loop)]
+            for i in 0..n {
+                let chi = (p.x[i] * p.x[i] + p.y[i] * p.y[i] + p.z[i] * p.z[i]).sqrt();
+                if closed && chi >= std::f64::consts::PI * r {
+                    return Err(crate::Error::input(format!(
+                        "{name}: row {i}: radial distance {chi} is beyond pi R = {} of the closed metric",
+                        std::f64::consts::PI * r
+                    )));
+                }
+                let (sc, h) = if closed {
+                    ((chi / r).sin(), (chi / (2.0 * r)).sin())
+                } else {
+                    ((chi / r).sinh(), (chi / (2.0 * r)).sinh())
+                };
+                let f = if chi > 0.0 { r * sc / chi } else { 1.0 };
+                c[0][i] = p.x[i] * f;
+                c[1][i] = p.y[i] * f;
+                c[2][i] = p.z[i] * f;
+                c[3][i] = 2.0 * r * h * h;
+            }
+            pts.c = c;
+            if cfg.binning.n_mu > 1 {
+                pts.f = [p.x.clone(), p.y.clone(), p.z.clone()];
+            }
+        }
+    }
+    Ok(pts)
+}
+
+/// Reorder points into tree order.
+fn permute(p: &Pts, perm: &[usize]) -> Pts {
+    let g = |v: &Vec<f64>| -> Vec<f64> {
+        if v.is_empty() {
+            Vec::new()
+        } else {
+            perm.iter().map(|&i| v[i]).collect()
+        }
+    };
+    Pts {
+        c: [g(&p.c[0]), g(&p.c[1]), g(&p.c[2]), g(&p.c[3])],
+        f: [g(&p.f[0]), g(&p.f[1]), g(&p.f[2])],
+        w: g(&p.w),
+        z: g(&p.z),
+        reg: if p.reg.is_empty() {
+            Vec::new()
+        } else {
+            perm.iter().map(|&i| p.reg[i]).collect()
+        },
+    }
+}
+
+/// A node pair of the traversal; `same` marks a node paired with itself in an auto count.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) struct Task {
+    a: u32,
+    b: u32,
+    same: bool,
+}
+
+/// Traversal context.
+struct Walker<'a> {
+    ta: &'a Tree,
+    pa: &'a Pts,
+    tb: &'a Tree,
+    pb: &'a Pts,
+    geo: Geo,
+    bn: &'a Binner,
+    leaf: LeafFn,
+    /// Padded pruning thresholds in q-space.
+    q_hi_pad: f64,
+    q_lo_pad: f64,
+}
+
+impl Walker<'_> {
+    fn bounds(&self, t: Task) -> (f64, f64) {
+        let a = &self.ta.nodes[t.a as usize];
+        let b = &self.tb.nodes[t.b as usize];
+        let (l, hl) = (self.geo.box_l, self.geo.half_l);
+        match self.geo.kind {
+            FLAT => node_bounds::<FLAT>(a, b, l, hl),
+            PER => node_bounds::<PER>(a, b, l, hl),
+            CLO => node_bounds::<CLO>(a, b, l, hl),
+            _ => node_bounds::<OPE>(a, b, l, hl),
+        }
+    }
+
+    fn pruned(&self, t: Task) -> bool {
+        let (qmin, qmax) = self.bounds(t);
+        qmin >= self.q_hi_pad || qmax < self.q_lo_pad
+    }
+
+    fn is_leaf_pair(&self, t: Task) -> bool {
+        self.ta.nodes[t.a as usize].is_leaf() && self.tb.nodes[t.b as usize].is_leaf()
+    }
+
+    /// Child node pairs in a fixed order.
+    fn split(&self, t: Task, out: &mut Vec<Task>) {
+        let a = &self.ta.nodes[t.a as usize];
+        let b = &self.tb.nodes[t.b as usize];
+        if t.same {
+            out.push(Task {
+                a: a.left,
+                b: a.left,
+                same: true,
+            });
+            out.push(Task {
+                a: a.left,
+                b: a.right,
+                same: false,
+            });
+            out.push(Task {
+                a: a.right,
+                b: a.right,
+                same: true,
+            });
+        } else if a.is_leaf() || (!b.is_leaf() && b.len() > a.len()) {
+            out.push(Task {
+                a: t.a,
+                b: b.left,
+                same: false,
+            });
+            out.push(Task {
+                a: t.a,
+                b: b.right,
+                same: false,
+            });
+        } else {
+            out.push(Task {
+                a: a.left,
+                b: t.b,
+                same: false,
+            });
+            out.push(Task {
+                a: a.right,
+                b: t.b,
+                same: false,
+            });
+        }
+    }
+
+    /// Cut the traversal into about TASK_TARGET node pairs, level by level.
+    fn tasks(&self, root: Task) -> Vec<Task> {
+        let mut cur = vec![root];
+        loop {
+            if cur.len() >= TASK_TARGET {
+                break;
+            }
+            let mut next = Vec::with_capacity(cur.len() * 3);
+            let mut grew = false;
+            for &t in &cur {
+                if self.pruned(t) {
+                    continue;
+                }
+                if self.is_leaf_pair(t) {
+                    next.push(t);
+                } else {
+                    self.split(t, &mut next);
+                    grew = true;
+                }
+            }
+            cur = next;
+            if !grew {
+                break;
+            }
+        }
+        cur
+    }
+
+    fn walk(&self, t: Task, acc: &mut Acc, stack: &mut Vec<Task>) {
+        stack.clear();
+        stack.push(t);
+        while let Some(t) = stack.pop() {
+            if self.pruned(t) {
+                continue;
+            }
+            if self.is_leaf_pair(t) {
+                let a = &self.ta.nodes[t.a as usize];
+                let b = &self.tb.nodes[t.b as usize];
+                let lp = LeafPair {
+                    a0: a.start,
+                    a1: a.end,
+                    b0: b.start,
+                    b1: b.end,
+                    same: t.same,
+                };
+                (self.leaf)(self.pa, self.pb, lp, &self.geo, self.bn, acc);
+            } else {
+                // push in reverse so children are visited in `split` order
+                let n0 = stack.len();
+                self.split(t, stack);
+                stack[n0..].reverse();
+            }
+        }
+    }
+}
+
+fn build_pool(threads: usize) -> crate::Result<rayon::ThreadPool> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| crate::Error::resource(format!("cannot start {threads} worker threads: {e}")))
+}
+
+fn add_counts(dst: &mut PairCounts, src: &PairCounts) {
+    for (a, b) in dst.npairs.iter_mut().zip(&src.npairs) {
+        *a += b;
+    }
+    for (d, s) in [
+        (&mut dst.wpairs, &src.wpairs),
+        (&mut dst.ws, &src.ws),
+        (&mut dst.wz, &src.wz),
+        (&mut dst.region_both, &src.region_both),
+        (&mut dst.region_one, &src.region_one),
+    ] {
+        for (a, b) in d.iter_mut().zip(s) {
+            *a += b;
+        }
+    }
+}
+
+/// Shared implementation of `count_auto` / `count_cross` with a chosen leaf kernel.
+pub(crate) fn count_impl(
+    a: &PointSet,
+    b: Option<&PointSet>,
+    cfg: &CountConfig,
+    kind: KernelKind,
+) -> crate::Result<PairCounts> {
+    let (geo, bn) = check_config(cfg)?;
+    let pa0 = prepare(
+        a,
+        if b.is_some() {
+            "catalogue A"
+        } else {
+            "catalogue"
+        },
+        cfg,
+        &geo,
+    )?;
+    let pb0 = match b {
+        Some(b) => Some(prepare(b, "catalogue B", cfg, &geo)?),
+        None => None,
+    };
+    let (ta, perm_a) = tree::build(&pa0.c);
+    let pa = permute(&pa0, &perm_a);
+    drop(pa0);
+    let tb_pb = pb0.map(|p| {
+        let (t, perm) = tree::build(&p.c);
+        (t, permute(&p, &perm))
+    });
+    let (tb, pb) = match &tb_pb {
+        Some((t, p)) => (t, p),
+        None => (&ta, &pa),
+    };
+    // Padding of the pruning thresholds: a relative 1e-9 plus 1e-12 of the coordinate scale
+    // absorbs any rounding difference between node bounds and pair values.
+    let scale = [&pa.c, &pb.c]
+        .iter()
+        .flat_map(|c| c.iter())
+        .flat_map(|v| v.iter())
+        .fold(geo.box_l, |m, &v| m.max(v.abs()));
+    let slack = 1e-12 * scale;
+    let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
+    let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
+    let w = Walker {
+        ta: &ta,
+        pa: &pa,
+        tb,
+        pb,
+        geo,
+        bn: &bn,
+        leaf: kernel::pick(kind, geo.kind, cfg.binning.n_mu > 1, Simd::detect()),
+        q_hi_pad,
+        q_lo_pad,
+    };
+    let root = Task {
+        a: 0,
+        b: 0,
+        same: b.is_none(),
+    };
+    let tasks = w.tasks(root);
+    let (k, n) = cfg.shard;
+    let mine: Vec<Task> = tasks.iter().skip(k).step_by(n).copied().collect();
+    let nb = bn.nb;
+    let nreg = cfg.n_regions;
+    let zeros = || PairCounts::zeros(cfg.binning.clone(), nreg);
+    let pool = build_pool(cfg.threads)?;
+    let out = pool.install(|| {
+        mine.par_iter()
+            .fold(
+                || (Acc::new(nb, nreg), zeros(), Vec::new()),
+                |(mut acc, mut pc, mut stack), &t| {
+                    w.walk(t, &mut acc, &mut stack);
+                    acc.flush(&mut pc);
+                    (acc, pc, stack)
+                },
+            )
+            .map(|(_, pc, _)| pc)
+            .reduce(zeros, |mut x, y| {
+                add_counts(&mut x, &y);
+                x
+            })
+    });
+    Ok(out)
+}
+
+fn brute_impl(a: &PointSet, b: Option<&PointSet>, cfg: &CountConfig) -> crate::Result<PairCounts> {
+    let (geo, bn) = check_config(cfg)?;
+    let pa = prepare(a, "catalogue A", cfg, &geo)?;
+    let pb = match b {
+        Some(b) => Some(prepare(b, "catalogue B", cfg, &geo)?),
+        None => None,
+    };
+    let pbr = pb.as_ref().unwrap_or(&pa);
+    let leaf = kernel::pick(
+        KernelKind::Reference,
+        geo.kind,
+        cfg.binning.n_mu > 1,
+        Simd::Portable,
+    );
+    let mut acc = Acc::new(bn.nb, cfg.n_regions);
+    let mut out = PairCounts::zeros(cfg.binning.clone(), cfg.n_regions);
+    // one row of pairs at a time keeps the f64 partial sums short
+    for i in 0..pa.len() {
+        let lp = LeafPair {
+            a0: i,
+            a1: i + 1,
+            b0: if pb.is_some() { 0 } else { i + 1 },
+            b1: pbr.len(),
+            same: false,
+        };
+        leaf(&pa, pbr, lp, &geo, &bn, &mut acc);
+        acc.flush(&mut out);
+    }
+    Ok(out)
+}

@@ -1,0 +1,567 @@
+//! Tests of the pair-count engine against brute force and independent references.
+use super::kernel::{pair_q, s_of_q, Binner, KernelKind, CLO, OPE};
+use super::*;
+use rand::{Rng, SeedableRng};
+use rand_chacha::ChaCha8Rng;
+
+/// c/H0 in Mpc/h (speed of light in km/s over 100 km/s/Mpc; exact by SI definition).
+const C_OVER_H0: f64 = 2997.92458;
+
+fn r_curv() -> f64 {
+    C_OVER_H0 / 0.05f64.sqrt()
+}
+
+/// A survey-like shell: chi uniform in [1000, 1800] Mpc/h inside a sky cap of half-angle
+/// `cap_deg` around the +z axis, weights in [0.5, 1.5], redshift ~ chi / 3000.
+fn shell(n: usize, seed: u64, cap_deg: f64) -> (PointSet, Vec<f64>, Vec<f64>) {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let cmin = cap_deg.to_radians().cos();
+    let mut p = PointSet::default();
+    let (mut ra, mut dec) = (Vec::new(), Vec::new());
+    for _ in 0..n {
+        let ct: f64 = rng.gen_range(cmin..1.0);
+        let st = (1.0 - ct * ct).sqrt();
+        let ph: f64 = rng.gen_range(0.0..std::f64::consts::TAU);
+        let chi: f64 = rng.gen_range(1000.0..1800.0);
+        p.x.push(chi * st * ph.cos());
+        p.y.push(chi * st * ph.sin());
+        p.z.push(chi * ct);
+        p.w.push(rng.gen_range(0.5..1.5));
+        p.redshift.push(chi / 3000.0);
+        ra.push(ph.to_degrees());
+        dec.push(90.0 - ct.acos().to_degrees());
+    }
+    (p, ra, dec)
+}
+
+/// Uniform points in a box of side l, a few of them slightly outside to exercise wrapping.
+fn boxed(n: usize, seed: u64, l: f64) -> PointSet {
+    let mut rng = ChaCha8Rng::seed_from_u64(seed);
+    let mut p = PointSet::default();
+    for i in 0..n {
+        let off = if i % 97 == 0 { l } else { 0.0 };
+        p.x.push(rng.gen_range(0.0..l) - off);
+        p.y.push(rng.gen_range(0.0..l));
+        p.z.push(rng.gen_range(0.0..l) + off);
+        p.w.push(rng.gen_range(0.5..1.5));
+        p.redshift.push(0.0);
+    }
+    p
+}
+
+fn cfg(edges: Vec<f64>, n_mu: usize, metric: Metric, n_regions: usize) -> CountConfig {
+    CountConfig {
+        binning: Binning::new(edges, n_mu).unwrap(),
+        metric,
+        n_regions,
+        threads: 2,
+        shard: (0, 1),
+    }
+}
+
+fn linear_edges() -> Vec<f64> {
+    (0..=25).map(|i| 8.0 * i as f64).collect()
+}
+
+fn uneven_edges() -> Vec<f64> {
+    vec![30.0, 45.0, 60.0, 100.0, 150.0, 200.0]
+}
+
+/// Exact npairs; weighted sums within 1e-12 relative (plus the fixed-point rounding of the
+/// reference's per-row flushes, 2^-49 per flush).
+fn assert_close(got: &PairCounts, want: &PairCounts, n_flush: usize, what: &str) {
+    assert_eq!(got.npairs, want.npairs, "{what}: npairs");
+    let abs = n_flush as f64 * 2f64.powi(-(FRAC_BITS as i32));
+    for (name, g, w) in [
+        ("wpairs", &got.wpairs, &want.wpairs),
+        ("ws", &got.ws, &want.ws),
+        ("wz", &got.wz, &want.wz),
+        ("region_both", &got.region_both, &want.region_both),
+        ("region_one", &got.region_one, &want.region_one),
+    ] {
+        assert_eq!(g.len(), w.len(), "{what}: {name} length");
+        for (b, (&x, &y)) in g.iter().zip(w).enumerate() {
+            let (x, y) = (from_fixed(x), from_fixed(y));
+            assert!(
+                (x - y).abs() <= 1e-12 * y.abs() + abs,
+                "{what}: {name}[{b}] = {x} vs brute force {y}"
+            );
+        }
+    }
+}
+
+fn metrics() -> Vec<Metric> {
+    vec![
+        Metric::Euclidean,
+        Metric::Periodic { box_size: 1000.0 },
+        Metric::Closed { radius: r_curv() },
+        Metric::Open { radius: r_curv() },
+    ]
+}
+
+fn data_for(m: &Metric, seed: u64, n: usize, n_regions: usize) -> PointSet {
+    let mut p = match m {
+        Metric::Periodic { box_size } => boxed(n, seed, *box_size),
+        _ => shell(n, seed, 9.0).0,
+    };
+    p.region = (0..n).map(|i| ((i * 7919) % n_regions) as u32).collect();
+    p
+}
+
+#[test]
+fn tree_counts_equal_brute_force_all_metrics() {
+    for m in metrics() {
+        for n_mu in [1, 5] {
+            for edges in [linear_edges(), uneven_edges()] {
+                let c = cfg(edges, n_mu, m, 3);
+                let a = data_for(&m, 1, 1500, 3);
+                let b = data_for(&m, 2, 1100, 3);
+                let what = format!("{m:?} n_mu={n_mu} edges={:?}", c.binning.s_edges);
+                let auto = count_auto(&a, &c).unwrap();
+                assert!(
+                    auto.npairs.iter().sum::<u64>() > 10_000,
+                    "{what}: too few pairs"
+                );
+                assert_close(
+                    &auto,
+                    &brute_force_auto(&a, &c),
+                    a.len(),
+                    &format!("auto {what}"),
+                );
+                let cross = count_cross(&a, &b, &c).unwrap();
+                assert_close(
+                    &cross,
+                    &brute_force_cross(&a, &b, &c),
+                    a.len(),
+                    &format!("cross {what}"),
+                );
+            }
+        }
+    }
+}
+
+#[test]
+fn fast_kernel_is_bitwise_reference_kernel() {
+    for m in metrics() {
+        for n_mu in [1, 4] {
+            let c = cfg(linear_edges(), n_mu, m, 3);
+            let a = data_for(&m, 3, 1200, 3);
+            let b = data_for(&m, 4, 900, 3);
+            let r = count_impl(&a, None, &c, KernelKind::Reference).unwrap();
+            let f = count_impl(&a, None, &c, KernelKind::Fast).unwrap();
+            assert_eq!(r, f, "{m:?} auto n_mu={n_mu}");
+            let r = count_impl(&a, Some(&b), &c, KernelKind::Reference).unwrap();
+            let f = count_impl(&a, Some(&b), &c, KernelKind::Fast).unwrap();
+            assert_eq!(r, f, "{m:?} cross n_mu={n_mu}");
+        }
+    }
+}
+
+#[test]
+fn bitwise_identical_for_threads_and_shards() {
+    for m in [Metric::Euclidean, Metric::Open { radius: r_curv() }] {
+        let mut c = cfg(linear_edges(), 3, m, 4);
+        let a = data_for(&m, 5, 3000, 4);
+        let b = data_for(&m, 6, 1000, 4);
+        for cross in [false, true] {
+            let run = |c: &CountConfig| {
+                if cross {
+                    count_cross(&a, &b, c).unwrap()
+                } else {
+                    count_auto(&a, c).unwrap()
+                }
+            };
+            c.threads = 1;
+            let one = run(&c);
+            for t in [2, 7] {
+                c.threads = t;
+                assert_eq!(run(&c), one, "{m:?} cross={cross} threads={t}");
+            }
+            c.threads = 2;
+            let mut merged = PairCounts::zeros(c.binning.clone(), c.n_regions);
+            for k in 0..3 {
+                c.shard = (k, 3);
+                let part = run(&c);
+                assert!(part.npairs.iter().sum::<u64>() > 0, "shard {k} empty");
+                merged.merge(&part).unwrap();
+            }
+            c.shard = (0, 1);
+            assert_eq!(merged, one, "{m:?} cross={cross}: 3 shards merged");
+        }
+    }
+}
+
+/// Independent single-tree reference: kiddo's within-radius query (inclusive, squared
+/// Euclidean), cumulative raw pair counts; common practice, no source.
+#[test]
+fn cumulative_counts_match_kiddo() {
+    use kiddo::{ImmutableKdTree, SquaredEuclidean};
+    let (p, _, _) = shell(2500, 7, 9.0);
+    let edges: Vec<f64> = vec![0.0, 7.3, 19.1, 33.3, 61.7, 97.9, 143.3, 199.7];
+    let c = cfg(edges.clone(), 1, Metric::Euclidean, 0);
+    let got = count_auto(&p, &c).unwrap();
+    let pts: Vec<[f64; 3]> = (0..p.len()).map(|i| [p.x[i], p.y[i], p.z[i]]).collect();
+    let tree: ImmutableKdTree<f64, 3> = ImmutableKdTree::new_from_slice(&pts);
+    let mut cum = 0u64;
+    for (k, &e) in edges.iter().enumerate().skip(1) {
+        cum += got.npairs[k - 1];
+        let mut n = 0u64;
+        for q in &pts {
+            n += tree.within_unsorted::<SquaredEuclidean>(q, e * e).len() as u64 - 1;
+        }
+        assert_eq!(cum, n / 2, "pairs within {e}");
+    }
+}
+
+/// The two endpoints and the angle between lines of sight for a pair of points.
+fn chis_theta(a: [f64; 3], b: [f64; 3]) -> (f64, f64, f64) {
+    let n = |v: [f64; 3]| (v[0] * v[0] + v[1] * v[1] + v[2] * v[2]).sqrt();
+    let (c1, c2) = (n(a), n(b));
+    let du = [
+        a[0] / c1 - b[0] / c2,
+        a[1] / c1 - b[1] / c2,
+        a[2] / c1 - b[2] / c2,
+    ];
+    (c1, c2, n(du) * n(du) / 4.0)
+}
+
+/// Separation the engine uses for one pair (embedding + q -> s).
+fn engine_s(m: Metric, a: [f64; 3], b: [f64; 3]) -> f64 {
+    let p = PointSet {
+        x: vec![a[0], b[0]],
+        y: vec![a[1], b[1]],
+        z: vec![a[2], b[2]],
+        w: vec![1.0, 1.0],
+        ..Default::default()
+    };
+    let c = cfg(vec![0.0, 1.0], 1, m, 0);
+    let (geo, _) = check_config(&c).unwrap();
+    let pts = prepare(&p, "t", &c, &geo).unwrap();
+    let args = |i: usize| (pts.c[0][i], pts.c[1][i], pts.c[2][i], pts.c[3][i]);
+    let ((ax, ay, az, at), (bx, by, bz, bt)) = (args(0), args(1));
+    match m {
+        Metric::Closed { radius } => s_of_q::<CLO>(
+            pair_q::<CLO>(ax, ay, az, at, bx, by, bz, bt, 0.0, 0.0).0,
+            radius,
+        ),
+        Metric::Open { radius } => s_of_q::<OPE>(
+            pair_q::<OPE>(ax, ay, az, at, bx, by, bz, bt, 0.0, 0.0).0,
+            radius,
+        ),
+        _ => unreachable!(),
+    }
+}
+
+#[test]
+fn curved_separation_matches_stable_form_and_embeddings() {
+    let r = r_curv();
+    let (p, _, _) = shell(400, 8, 9.0);
+    let mut rng = ChaCha8Rng::seed_from_u64(9);
+    let mut tested = 0;
+    for _ in 0..4000 {
+        let (i, j) = (rng.gen_range(0..p.len()), rng.gen_range(0..p.len()));
+        let a = [p.x[i], p.y[i], p.z[i]];
+        let b = [p.x[j], p.y[j], p.z[j]];
+        let (c1, c2, s2h) = chis_theta(a, b);
+        let flat = ((c1 - c2).powi(2) + 4.0 * c1 * c2 * s2h).sqrt();
+        if !(10.0..=300.0).contains(&flat) {
+            continue;
+        }
+        tested += 1;
+        // closed: ARCHITECTURE.md section 3 stable form
+        let rhs = ((c1 - c2) / (2.0 * r)).sin().powi(2) + (c1 / r).sin() * (c2 / r).sin() * s2h;
+        let s_stable = 2.0 * r * rhs.sqrt().asin();
+        // closed: direct 4-D sphere embedding, geodesic = R * angle between the 4-vectors
+        let emb = |v: [f64; 3], c: f64| {
+            let f = r * (c / r).sin() / c;
+            [v[0] * f, v[1] * f, v[2] * f, r * (c / r).cos()]
+        };
+        let (p1, p2) = (emb(a, c1), emb(b, c2));
+        let nd: f64 = (0..4).map(|k| (p1[k] - p2[k]).powi(2)).sum::<f64>().sqrt();
+        let ns: f64 = (0..4).map(|k| (p1[k] + p2[k]).powi(2)).sum::<f64>().sqrt();
+        let s_emb = 2.0 * r * nd.atan2(ns);
+        let s_eng = engine_s(Metric::Closed { radius: r }, a, b);
+        assert!(
+            (s_eng - s_stable).abs() <= 1e-10 * s_stable,
+            "closed {s_eng} vs {s_stable}"
+        );
+        assert!(
+            (s_eng - s_emb).abs() <= 1e-10 * s_emb,
+            "closed {s_eng} vs {s_emb}"
+        );
+        // open: stable form and the hyperboloid (Minkowski) embedding
+        let rhs = ((c1 - c2) / (2.0 * r)).sinh().powi(2) + (c1 / r).sinh() * (c2 / r).sinh() * s2h;
+        let s_stable = 2.0 * r * rhs.sqrt().asinh();
+        let hyp = |v: [f64; 3], c: f64| {
+            let f = r * (c / r).sinh() / c;
+            [v[0] * f, v[1] * f, v[2] * f, r * (c / r).cosh()]
+        };
+        let (h1, h2) = (hyp(a, c1), hyp(b, c2));
+        let mink = (0..3).map(|k| (h1[k] - h2[k]).powi(2)).sum::<f64>() - (h1[3] - h2[3]).powi(2);
+        let s_emb = 2.0 * r * (mink.sqrt() / (2.0 * r)).asinh();
+        let s_eng = engine_s(Metric::Open { radius: r }, a, b);
+        assert!(
+            (s_eng - s_stable).abs() <= 1e-10 * s_stable,
+            "open {s_eng} vs {s_stable}"
+        );
+        assert!(
+            (s_eng - s_emb).abs() <= 1e-10 * s_emb,
+            "open {s_eng} vs {s_emb}"
+        );
+        // both tend to the flat separation as R -> infinity
+        let mut prev = f64::INFINITY;
+        for big in [1e5, 1e6, 1e7] {
+            let dc = (engine_s(Metric::Closed { radius: big }, a, b) - flat).abs() / flat;
+            let dopen = (engine_s(Metric::Open { radius: big }, a, b) - flat).abs() / flat;
+            let tol = 2.0 * (1800.0 / big).powi(2) + 1e-12;
+            assert!(dc <= tol && dopen <= tol, "R={big}: {dc} {dopen} > {tol}");
+            assert!(dc.max(dopen) <= prev.max(1e-12));
+            prev = dc.max(dopen);
+        }
+    }
+    assert!(tested > 100);
+}
+
+#[test]
+fn bin_table_agrees_with_binary_search() {
+    let geo_edges = [linear_edges(), uneven_edges(), vec![0.0, 1e-3, 0.5, 200.0]];
+    for edges in geo_edges {
+        let qe: Vec<f64> = edges.iter().map(|e| e * e).collect();
+        let bn = Binner::new(qe.clone(), 1);
+        assert!(bn.table_ok || edges[1] < 1e-2);
+        if !bn.table_ok {
+            continue;
+        }
+        let mut rng = ChaCha8Rng::seed_from_u64(10);
+        let mut qs: Vec<f64> = (0..100_000)
+            .map(|_| rng.gen_range(qe[0]..qe[qe.len() - 1]))
+            .collect();
+        for &e in &qe[..qe.len() - 1] {
+            qs.extend([e, e.next_up(), e.next_down().max(qe[0])]);
+        }
+        for q in qs {
+            assert_eq!(
+                bn.s_bin_from_cell(bn.cell(q), q),
+                bn.s_bin_exact(q),
+                "q = {q}"
+            );
+        }
+    }
+}
+
+#[test]
+fn edge_and_mu_conventions() {
+    // a pair at exactly s = 5 goes in [5, 10); s = 10 = s_max is not counted; a radial pair has
+    // mu = 1 and goes in the last mu bin; a transverse pair has mu = 0.
+    let c = cfg(vec![0.0, 5.0, 10.0], 2, Metric::Euclidean, 0);
+    let p = PointSet {
+        x: vec![0.0, 0.0, 3.0, 0.0],
+        y: vec![0.0, 0.0, 0.0, 0.0],
+        z: vec![100.0, 105.0, 100.0, 110.0],
+        w: vec![1.0; 4],
+        ..Default::default()
+    };
+    let got = count_auto(&p, &c).unwrap();
+    // pairs: (0,1) s=5 mu=1; (0,2) s=3 mu~0; (0,3) s=10 excluded; (1,2) s=sqrt(34) mu=5/5.83;
+    // (1,3) s=5 mu=1; (2,3) s=sqrt(109) excluded
+    assert_eq!(got.npairs, vec![1, 0, 0, 3]);
+    assert_eq!(got, brute_force_auto(&p, &c));
+    // coincident points are a pair (excluded only by index), at s = 0, mu = 0
+    let q = PointSet {
+        x: vec![1.0, 1.0],
+        y: vec![2.0, 2.0],
+        z: vec![3.0, 3.0],
+        w: vec![2.0, 0.5],
+        redshift: vec![0.4, 0.6],
+        ..Default::default()
+    };
+    let got = count_auto(&q, &c).unwrap();
+    assert_eq!(got.npairs, vec![1, 0, 0, 0]);
+    assert_eq!(got.wpairs[0], to_fixed(1.0));
+    assert_eq!(got.wz[0], to_fixed(0.5));
+}
+
+/// Poisson points in a periodic box: expected pairs in a shell is N(N-1)/2 * V_shell / L^3
+/// (common practice, no source); tolerance 5 sigma of a Poisson count.
+#[test]
+fn periodic_poisson_counts() {
+    let l = 500.0;
+    let mut p = boxed(4000, 11, l);
+    p.w = vec![1.0; p.len()];
+    let edges = vec![10.0, 40.0, 80.0, 120.0];
+    let c = cfg(edges.clone(), 1, Metric::Periodic { box_size: l }, 0);
+    let got = count_auto(&p, &c).unwrap();
+    let n = p.len() as f64;
+    for k in 0..3 {
+        let vol = 4.0 / 3.0 * std::f64::consts::PI * (edges[k + 1].powi(3) - edges[k].powi(3));
+        let want = n * (n - 1.0) / 2.0 * vol / l.powi(3);
+        let g = got.npairs[k] as f64;
+        assert!(
+            (g - want).abs() < 5.0 * want.sqrt(),
+            "bin {k}: {g} vs {want}"
+        );
+    }
+}
+
+#[test]
+fn bad_input_is_reported() {
+    let c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
+    let e = count_auto(&PointSet::default(), &c).unwrap_err();
+    assert_eq!(e.exit_code(), 2);
+    assert!(e.to_string().contains("empty"), "{e}");
+
+    let p = boxed(100, 1, 300.0);
+    let c = cfg(linear_edges(), 1, Metric::Periodic { box_size: 400.0 }, 0);
+    let e = count_auto(&p, &c).unwrap_err();
+    assert_eq!(e.exit_code(), 2);
+    assert!(e.to_string().contains("box_size/2"), "{e}");
+
+    let mut p = data_for(&Metric::Euclidean, 1, 50, 3);
+    p.region[17] = 3;
+    let c = cfg(linear_edges(), 1, Metric::Euclidean, 3);
+    let e = count_auto(&p, &c).unwrap_err();
+    assert_eq!(e.exit_code(), 2);
+    assert!(
+        e.to_string().contains("row 17") && e.to_string().contains("label 3"),
+        "{e}"
+    );
+
+    let mut q = data_for(&Metric::Euclidean, 1, 50, 3);
+    q.w.pop();
+    assert!(count_cross(&data_for(&Metric::Euclidean, 2, 50, 3), &q, &c).is_err());
+    q.w.push(f64::NAN);
+    let e = count_auto(&q, &c).unwrap_err();
+    assert!(e.to_string().contains("row 49"), "{e}");
+
+    let mut c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
+    c.shard = (3, 3);
+    assert!(count_auto(&boxed(10, 1, 10.0), &c).is_err());
+}
+
+#[test]
+fn jackknife_sums_are_consistent() {
+    // common practice, no source: per bin: sum_k both + one/2 = total (each pair is "both" in one region or "one" in two)
+    let c = cfg(linear_edges(), 1, Metric::Euclidean, 4);
+    let a = data_for(&Metric::Euclidean, 12, 800, 4);
+    let got = count_auto(&a, &c).unwrap();
+    let nb = c.binning.n_bins();
+    for b in 0..nb {
+        let s: i128 = (0..4)
+            .map(|k| 2 * got.region_both[k * nb + b] + got.region_one[k * nb + b])
+            .sum();
+        // each task flush rounds every sum once (2^-49 each), so allow a few units per task
+        let tol = (4 * TASK_TARGET) as i128;
+        assert!(
+            (s - 2 * got.wpairs[b]).abs() <= tol,
+            "bin {b}: {s} vs {}",
+            2 * got.wpairs[b]
+        );
+        assert!(
+            got.wpairs[b] > 1 << FRAC_BITS,
+            "bin {b} has too few pairs to test"
+        );
+    }
+}
+
+#[test]
+fn kmeans_regions_are_deterministic_and_compact() {
+    let (_, ra, dec) = shell(3000, 13, 20.0);
+    let k = 8;
+    let l1 = kmeans_sky_regions(&ra, &dec, k, 42).unwrap();
+    let l2 = kmeans_sky_regions(&ra, &dec, k, 42).unwrap();
+    assert_eq!(l1, l2);
+    let mut sizes = vec![0usize; k];
+    for &l in &l1 {
+        sizes[l as usize] += 1;
+    }
+    assert!(sizes.iter().all(|&s| s > 3000 / (4 * k)), "{sizes:?}");
+    // converged Lloyd: every point is nearest (brute force) to its own region's mean direction
+    let u: Vec<[f64; 3]> = ra
+        .iter()
+        .zip(&dec)
+        .map(|(&r, &d)| {
+            let (r, d) = (r.to_radians(), d.to_radians());
+            [d.cos() * r.cos(), d.cos() * r.sin(), d.sin()]
+        })
+        .collect();
+    let mut cen = vec![[0.0f64; 3]; k];
+    for (p, &l) in u.iter().zip(&l1) {
+        for d in 0..3 {
+            cen[l as usize][d] += p[d];
+        }
+    }
+    let mut bad = 0;
+    for (p, &l) in u.iter().zip(&l1) {
+        let dist = |c: &[f64; 3]| {
+            let n = (c[0] * c[0] + c[1] * c[1] + c[2] * c[2]).sqrt();
+            (0..3).map(|d| (p[d] - c[d] / n).powi(2)).sum::<f64>()
+        };
+        let best = (0..k)
+            .min_by(|&x, &y| dist(&cen[x]).total_cmp(&dist(&cen[y])))
+            .unwrap();
+        if best != l as usize {
+            bad += 1;
+        }
+    }
+    assert_eq!(bad, 0);
+    assert!(kmeans_sky_regions(&ra[..3], &dec[..3], 5, 1).is_err());
+}
+
+#[test]
+fn memory_estimate_grows_with_inputs() {
+    let c = cfg(linear_edges(), 5, Metric::Euclidean, 10);
+    let small = memory_estimate_bytes(1000, 0, &c);
+    let big = memory_estimate_bytes(1_000_000, 1_000_000, &c);
+    assert!(small > 0 && big > small + 100 * 2_000_000);
+}
+
+/// One-off speed comparison of the two leaf kernels (not a timed assertion; run with
+/// `cargo test --release --lib pairs::tests::kernel_rate -- --ignored --nocapture`).
+#[test]
+#[ignore]
+fn kernel_rate() {
+    let mut c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
+    c.threads = 1;
+    let n = std::env::var("PAIRS_RATE_N")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(40_000);
+    let (p, _, _) = shell(n, 14, 9.0);
+    let tally = count_impl(&p, None, &c, KernelKind::Tally).unwrap();
+    let tests = from_fixed(tally.wpairs[0]);
+    println!("{} leaf pairs, {tests} pair tests", tally.npairs[0]);
+    println!("simd level: {:?}", super::kernel::Simd::detect());
+    for kind in [
+        KernelKind::Reference,
+        KernelKind::Fast,
+        KernelKind::Reference,
+        KernelKind::Fast,
+    ] {
+        let t = std::time::Instant::now();
+        let r = count_impl(&p, None, &c, kind).unwrap();
+        let dt = t.elapsed().as_secs_f64();
+        println!(
+            "{kind:?}: {dt:.3} s, {} pairs counted, {:.1} M pair tests/s",
+            r.npairs.iter().sum::<u64>(),
+            tests / dt / 1e6
+        );
+    }
+}
+
+/// Very uneven bins make the lookup table too large; the kernels then fall back to binary
+/// search and must still equal brute force.
+#[test]
+fn uneven_bins_without_table_equal_brute_force() {
+    for m in [Metric::Euclidean, Metric::Closed { radius: r_curv() }] {
+        let c = cfg(vec![0.0, 1e-3, 0.5, 60.0, 200.0], 2, m, 2);
+        let (geo, bn) = check_config(&c).unwrap();
+        assert!(!bn.table_ok, "{:?}", geo.kind);
+        let a = data_for(&m, 15, 900, 2);
+        assert_close(
+            &count_auto(&a, &c).unwrap(),
+            &brute_force_auto(&a, &c),
+            a.len(),
+            &format!("{m:?}"),
+        );
+    }
+}
