@@ -62,7 +62,13 @@ fn inv3(m: &[[f64; 3]; 3]) -> Option<[[f64; 3]; 3]> {
         m[i1][j1] * m[i2][j2] - m[i1][j2] * m[i2][j1]
     };
     let det = m[0][0] * c(0, 0) + m[0][1] * c(0, 1) + m[0][2] * c(0, 2);
-    if det.is_nan() || det <= 0.0 || !det.is_finite() || m[0][0] <= 0.0 || m[1][1] <= 0.0 || m[2][2] <= 0.0 {
+    if det.is_nan()
+        || det <= 0.0
+        || !det.is_finite()
+        || m[0][0] <= 0.0
+        || m[1][1] <= 0.0
+        || m[2][2] <= 0.0
+    {
         return None;
     }
     let mut inv = [[0.0; 3]; 3];

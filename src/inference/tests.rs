@@ -393,3 +393,27 @@ fn outputs_written() {
     assert!(dir.path().join("posterior_omega_k.png").exists());
     assert!(dir.path().join("posterior_omega_k.svg").exists());
 }
+
+#[test]
+fn single_bao_point_is_degenerate_regime() {
+    // One D_V/r_d point with an r_d prior and a flat h prior cannot separate Omega_k from
+    // Omega_m and h (common practice, no source): the width must be far above 0.0025.
+    let data = [BaoPoint {
+        z_eff: 0.55,
+        dv_over_rd: dv_rd_ref(0.0, 0.31, 0.68, 147.09, 0.55),
+        dv_over_rd_err: 0.15,
+    }];
+    let pri = Priors {
+        omega_k: Some(ParamPrior::flat(-0.3, 0.3)),
+        ..Priors::with_rd_planck18()
+    };
+    let s = SamplerSettings {
+        run_mcmc: false,
+        ..Default::default()
+    };
+    let res = run_inference(&data, &pri, &s).unwrap();
+    eprintln!("{}\n{:?}", res.statement, res.curvature);
+    assert!(res.curvature.width_over_cmb_bao > 10.0);
+    assert!(res.curvature.flat_inside_95);
+    assert!(res.statement.contains("prior") && res.statement.contains("degenerate"));
+}
