@@ -10,6 +10,7 @@ pub mod error;
 pub mod estimator;
 pub mod fit;
 pub mod geometry;
+pub mod inference;
 pub mod mock;
 pub mod pairs;
 pub mod report;
