@@ -77,6 +77,37 @@ enum Cmd {
         #[arg(long, default_value = "json")]
         format: String,
     },
+    /// Count DD (and DR, RR with randoms) pairs into a counts folder.
+    Count(Box<CountArgs>),
+    /// Merge the folders of `count --shard k/N` runs into one, bit for bit.
+    Merge {
+        /// Output counts folder.
+        #[arg(long)]
+        out: PathBuf,
+        /// Shard folders.
+        #[arg(required = true)]
+        shards: Vec<PathBuf>,
+    },
+    /// Correlation function and covariance from a counts folder.
+    Xi {
+        /// Counts folder (from `ringscale count` or `merge`).
+        #[arg(long)]
+        counts: PathBuf,
+        /// Output folder.
+        #[arg(long)]
+        out: PathBuf,
+        /// Merge groups of G adjacent separation bins (summing counts) first.
+        #[arg(long, default_value_t = 1)]
+        rebin: usize,
+        /// xi.ecsv files of mocks for a sample covariance (instead of the jackknife).
+        #[arg(long, num_args = 1..)]
+        mock_xi: Vec<PathBuf>,
+    },
+    /// Fit the acoustic peak: alpha, D_V/r_d, chi2 curve and plots.
+    Fit(Box<FitArgs>),
+    /// Lognormal mock catalogues.
+    #[command(subcommand)]
+    Mock(MockCmd),
     /// Read, validate and summarise a catalogue.
     Inspect {
         catalogue: PathBuf,
@@ -86,6 +117,278 @@ enum Cmd {
         #[arg(long)]
         json: bool,
     },
+}
+
+#[derive(Args)]
+struct FitArgs {
+    /// Folder with xi.ecsv and covariance.npy (from `ringscale xi`).
+    #[arg(long)]
+    xi: PathBuf,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// Template/fiducial cosmology (default: the counting fiducial).
+    #[arg(long)]
+    cosmology: Option<String>,
+    /// Fit range LO:HI in Mpc/h.
+    #[arg(long, default_value = "50:150")]
+    fit_range: String,
+    /// alpha grid LO:HI:STEP.
+    #[arg(long, default_value = "0.8:1.2:0.001")]
+    alpha_grid: String,
+    /// BAO damping scale Sigma_nl in Mpc/h (about 8 before reconstruction).
+    #[arg(long, default_value_t = 8.0)]
+    sigma_nl: f64,
+    /// Linear power table (k [h/Mpc], P [(Mpc/h)^3]) for the template instead of EH98.
+    #[arg(long)]
+    power_table: Option<PathBuf>,
+    /// Also report D_V in Mpc for this r_d [Mpc].
+    #[arg(long)]
+    rd: Option<f64>,
+    /// Skip the PNG/SVG plots.
+    #[arg(long)]
+    no_plots: bool,
+}
+
+#[derive(Subcommand)]
+enum MockCmd {
+    /// A periodic box of galaxies (X, Y, Z in Mpc/h).
+    Box {
+        /// True cosmology (preset or TOML file).
+        #[arg(long, default_value = "planck18")]
+        cosmology: String,
+        #[arg(long, default_value_t = 256)]
+        n_grid: usize,
+        /// Box side in Mpc/h.
+        #[arg(long = "box", default_value_t = 1000.0)]
+        box_size: f64,
+        /// Number density in (h/Mpc)^3.
+        #[arg(long, default_value_t = 3e-4)]
+        nbar: f64,
+        #[arg(long, default_value_t = 2.0)]
+        bias: f64,
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Output catalogue (.fits or .csv).
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Galaxies and randoms in a sky footprint and redshift range.
+    Survey {
+        #[arg(long, default_value = "planck18")]
+        cosmology: String,
+        /// Sky cap RA,DEC,RADIUS in degrees.
+        #[arg(long, group = "footprint")]
+        cap: Option<String>,
+        /// Sky polygon RA1,DEC1;RA2,DEC2;... in degrees (great-circle edges).
+        #[arg(long, group = "footprint")]
+        polygon: Option<String>,
+        /// Redshift range LO:HI.
+        #[arg(long)]
+        z_range: String,
+        /// Constant number density in (h/Mpc)^3.
+        #[arg(long)]
+        nbar: Option<f64>,
+        /// n(z) table: lines "z nbar".
+        #[arg(long)]
+        nz_table: Option<PathBuf>,
+        #[arg(long, default_value_t = 2.0)]
+        bias: f64,
+        #[arg(long, default_value_t = 256)]
+        n_grid: usize,
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Randoms per galaxy.
+        #[arg(long, default_value_t = 10.0)]
+        random_factor: f64,
+        /// Galaxy catalogue output (.fits or .csv).
+        #[arg(long)]
+        out_galaxies: PathBuf,
+        /// Random catalogue output (.fits or .csv).
+        #[arg(long)]
+        out_randoms: PathBuf,
+    },
+}
+
+fn parse_range(spec: &str, what: &str) -> Result<(f64, f64)> {
+    let bad = || ringscale::Error::input(format!("{what} '{spec}': expected LO:HI"));
+    let (a, b) = spec.split_once(':').ok_or_else(bad)?;
+    let lo: f64 = a.trim().parse().map_err(|_| bad())?;
+    let hi: f64 = b.trim().parse().map_err(|_| bad())?;
+    if lo.is_nan() || hi.is_nan() || lo >= hi {
+        return Err(bad());
+    }
+    Ok((lo, hi))
+}
+
+fn fit_options(a: &FitArgs) -> Result<app::fit::FitOptions> {
+    let (s_min, s_max) = parse_range(&a.fit_range, "--fit-range")?;
+    let g: Vec<f64> = a
+        .alpha_grid
+        .split(':')
+        .map(|t| t.trim().parse::<f64>())
+        .collect::<std::result::Result<_, _>>()
+        .map_err(|_| {
+            ringscale::Error::input(format!(
+                "--alpha-grid '{}': expected LO:HI:STEP",
+                a.alpha_grid
+            ))
+        })?;
+    if g.len() != 3 {
+        return Err(ringscale::Error::input(format!(
+            "--alpha-grid '{}': expected LO:HI:STEP",
+            a.alpha_grid
+        )));
+    }
+    Ok(app::fit::FitOptions {
+        xi_dir: a.xi.clone(),
+        out: a.out.clone(),
+        cosmology: a.cosmology.clone(),
+        fit: ringscale::fit::IsotropicOptions {
+            s_min,
+            s_max,
+            alpha_min: g[0],
+            alpha_max: g[1],
+            alpha_step: g[2],
+        },
+        template: ringscale::fit::TemplateOptions {
+            sigma_nl: a.sigma_nl,
+            ..Default::default()
+        },
+        power_table: a.power_table.clone(),
+        rd_user: a.rd,
+        plots: !a.no_plots,
+    })
+}
+
+#[derive(Args)]
+struct CountArgs {
+    /// Galaxy catalogue (FITS or CSV).
+    #[arg(long)]
+    data: PathBuf,
+    /// Random catalogue (FITS or CSV).
+    #[arg(long)]
+    randoms: Option<PathBuf>,
+    /// Fiducial cosmology (preset or TOML file) for RA, Dec, z catalogues.
+    #[arg(long, conflicts_with = "cartesian")]
+    cosmology: Option<String>,
+    /// Positions are X, Y, Z columns in Mpc/h.
+    #[arg(long)]
+    cartesian: bool,
+    /// Periodic box of this side (Mpc/h), with --cartesian.
+    #[arg(long = "box", requires = "cartesian")]
+    box_size: Option<f64>,
+    /// Linear separation bins LO:HI:N in Mpc/h.
+    #[arg(long, group = "bins")]
+    edges: Option<String>,
+    /// Logarithmic separation bins LO:HI:N in Mpc/h.
+    #[arg(long, group = "bins")]
+    log_edges: Option<String>,
+    /// File of explicit separation edges in Mpc/h.
+    #[arg(long, group = "bins")]
+    edges_file: Option<PathBuf>,
+    /// Number of mu bins on [0, 1].
+    #[arg(long, default_value_t = 1)]
+    mu_bins: usize,
+    /// Split the randoms into M disjoint subsets for RR.
+    #[arg(long, default_value_t = 1)]
+    rr_splits: usize,
+    /// Assign K jackknife regions (k-means on the sky; slabs for Cartesian input).
+    #[arg(long)]
+    regions: Option<usize>,
+    /// Seed of the k-means region assignment.
+    #[arg(long, default_value_t = 1)]
+    region_seed: u64,
+    /// Threads (default: SLURM_CPUS_PER_TASK, else all cores).
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Compute part k of N (0-based) of the work.
+    #[arg(long)]
+    shard: Option<String>,
+    /// Refuse to start when the memory estimate exceeds this many MiB.
+    #[arg(long)]
+    max_memory: Option<f64>,
+    /// Output counts folder.
+    #[arg(long)]
+    out: PathBuf,
+    /// X column for --cartesian.
+    #[arg(long, default_value = "X")]
+    x_column: String,
+    /// Y column for --cartesian.
+    #[arg(long, default_value = "Y")]
+    y_column: String,
+    /// Z-position column for --cartesian.
+    #[arg(long, default_value = "Z")]
+    zpos_column: String,
+    #[command(flatten)]
+    columns: ColumnArgs,
+}
+
+fn count_options(a: &CountArgs) -> Result<app::count::CountOptions> {
+    use app::count::*;
+    let edges = match (&a.edges, &a.log_edges, &a.edges_file) {
+        (Some(s), _, _) => parse_edges(s, false)?,
+        (_, Some(s), _) => parse_edges(s, true)?,
+        (_, _, Some(p)) => read_edges_file(p)?,
+        _ => {
+            return Err(ringscale::Error::input(
+                "give the separation bins: --edges, --log-edges or --edges-file",
+            ))
+        }
+    };
+    let binning = ringscale::pairs::Binning::new(edges, a.mu_bins)?;
+    let (geometry, columns) = if a.cartesian {
+        let map = ColumnMap::cartesian(
+            &a.x_column,
+            &a.y_column,
+            &a.zpos_column,
+            a.columns.weight_columns.clone(),
+            a.columns.region_column.clone(),
+        );
+        (
+            GeometryChoice::Cartesian {
+                box_size: a.box_size,
+            },
+            map,
+        )
+    } else {
+        let c = a.cosmology.clone().ok_or_else(|| {
+            ringscale::Error::input("give --cosmology NAME|FILE (or --cartesian)")
+        })?;
+        (GeometryChoice::Survey { cosmology: c }, a.columns.sky_map())
+    };
+    let regions = match (a.regions, &a.columns.region_column) {
+        (Some(_), Some(_)) => {
+            return Err(ringscale::Error::input(
+                "use either --regions K or --region-column, not both",
+            ))
+        }
+        (Some(k), None) => RegionChoice::Assign {
+            k,
+            seed: a.region_seed,
+        },
+        (None, Some(_)) => RegionChoice::Column,
+        (None, None) => RegionChoice::None,
+    };
+    let shard = match &a.shard {
+        Some(s) => parse_shard(s)?,
+        None => (0, 1),
+    };
+    Ok(CountOptions {
+        data: a.data.clone(),
+        randoms: a.randoms.clone(),
+        skip_rr: false,
+        geometry,
+        columns,
+        filter: a.columns.filter(),
+        binning,
+        rr_splits: a.rr_splits,
+        regions,
+        threads: app::resolve_threads(a.threads),
+        shard,
+        out: a.out.clone(),
+        max_memory: a.max_memory.map(|m| (m * 1048576.0) as u64),
+    })
 }
 
 fn run(cli: Cli) -> Result<()> {
@@ -100,6 +403,123 @@ fn run(cli: Cli) -> Result<()> {
             let report = app::distances::compute(&src, &zs);
             print!("{}", app::distances::render(&report, &format)?);
         }
+        Cmd::Count(a) => {
+            let opt = count_options(&a)?;
+            let outcome = app::count::run_and_report(&opt)?;
+            for m in outcome.messages {
+                eprintln!("{m}");
+            }
+        }
+        Cmd::Merge { out, shards } => {
+            let states = app::count::merge_folders(&shards)?;
+            app::count::write_folder(&out, &states)?;
+            eprintln!(
+                "merged {} shard folders into {}",
+                shards.len(),
+                out.display()
+            );
+        }
+        Cmd::Xi {
+            counts,
+            out,
+            rebin,
+            mock_xi,
+        } => {
+            let s = app::xi::run(&app::xi::XiOptions {
+                counts,
+                out: out.clone(),
+                rebin,
+                mock_xi,
+            })?;
+            eprintln!(
+                "xi: {} ({} s bins, {} mu bins), covariance: {} ({} samples) -> {}",
+                s.estimator,
+                s.n_s,
+                s.n_mu,
+                s.covariance,
+                s.n_samples,
+                out.display()
+            );
+        }
+        Cmd::Fit(a) => {
+            let o = app::fit::run(&fit_options(&a)?)?;
+            let r = &o.result;
+            println!(
+                "alpha = {:.4} -{:.4} +{:.4}   chi2/dof = {:.1}/{}   detection {:.1} sigma",
+                r.alpha, r.alpha_err_lo, r.alpha_err_hi, r.chi2_min, r.dof, r.detection_sigma
+            );
+            println!(
+                "z_eff = {:.4}   D_V/r_d = {:.3} +- {:.3}",
+                r.z_eff, r.dv_over_rd, r.dv_over_rd_err
+            );
+            for f in &o.files {
+                println!("wrote {}", f.display());
+            }
+        }
+        Cmd::Mock(m) => match m {
+            MockCmd::Box {
+                cosmology,
+                n_grid,
+                box_size,
+                nbar,
+                bias,
+                seed,
+                out,
+            } => {
+                let cfg = ringscale::mock::BoxMockConfig {
+                    n_grid,
+                    box_size,
+                    nbar,
+                    bias,
+                    seed,
+                };
+                let info = app::mock::run_box(&cosmology, &cfg, &out)?;
+                eprintln!("wrote {} galaxies to {}", info.n_galaxies, out.display());
+            }
+            MockCmd::Survey {
+                cosmology,
+                cap,
+                polygon,
+                z_range,
+                nbar,
+                nz_table,
+                bias,
+                n_grid,
+                seed,
+                random_factor,
+                out_galaxies,
+                out_randoms,
+            } => {
+                let footprint = match (cap, polygon) {
+                    (Some(c), None) => app::mock::parse_cap(&c)?,
+                    (None, Some(p)) => app::mock::parse_polygon(&p)?,
+                    _ => {
+                        return Err(ringscale::Error::input(
+                            "give a footprint: --cap or --polygon",
+                        ))
+                    }
+                };
+                let (z_min, z_max) = parse_range(&z_range, "--z-range")?;
+                let cfg = ringscale::mock::SurveyMockConfig {
+                    footprint,
+                    z_min,
+                    z_max,
+                    nbar: app::mock::nz_spec(nbar, nz_table.as_ref())?,
+                    bias,
+                    n_grid,
+                    seed,
+                    random_factor,
+                };
+                let info = app::mock::run_survey(&cosmology, &cfg, &out_galaxies, &out_randoms)?;
+                eprintln!(
+                    "wrote {} galaxies to {} and {} randoms to {}",
+                    info.n_galaxies,
+                    out_galaxies.display(),
+                    info.n_randoms,
+                    out_randoms.display()
+                );
+            }
+        },
         Cmd::Inspect {
             catalogue,
             columns,

@@ -1,5 +1,6 @@
 //! `ringscale distances`: background distances for a list of redshifts.
 use crate::cosmology::{Cosmology, CosmologySource};
+use crate::report::ecsv::{to_ecsv_string, Column, Table};
 use crate::{Error, Result};
 use serde::Serialize;
 
@@ -81,39 +82,28 @@ pub fn render(report: &DistanceReport, format: &str) -> Result<String> {
             .map_err(|e| Error::other(e.to_string()))?
             + "\n"),
         "ecsv" => {
-            let names = [
-                "z",
-                "comoving_radial_mpc",
-                "comoving_transverse_mpc",
-                "angular_diameter_mpc",
-                "luminosity_mpc",
-                "hubble_distance_mpc",
-                "dv_mpc",
-            ];
-            let mut s = String::from("# %ECSV 1.0\n# ---\n# datatype:\n");
-            for n in names {
-                s += &format!("# - {{name: {n}, datatype: float64}}\n");
-            }
-            s += &format!(
-                "# meta: {{r_d_mpc: {:?}, particle_horizon_mpc: {:?}, cosmology: {}}}\n",
-                report.r_d_mpc, report.particle_horizon_mpc, report.cosmology
-            );
-            s += "# schema: astropy-2.0\n";
-            s += &names.join(" ");
-            s.push('\n');
-            for r in &report.rows {
-                s += &format!(
-                    "{:?} {:?} {:?} {:?} {:?} {:?} {:?}\n",
-                    r.z,
-                    r.comoving_radial_mpc,
-                    r.comoving_transverse_mpc,
-                    r.angular_diameter_mpc,
-                    r.luminosity_mpc,
-                    r.hubble_distance_mpc,
-                    r.dv_mpc
-                );
-            }
-            Ok(s)
+            let col = |name: &str, f: fn(&DistanceRow) -> f64| {
+                Column::f64(name, report.rows.iter().map(f).collect())
+            };
+            let table = Table {
+                columns: vec![
+                    col("z", |r| r.z),
+                    col("comoving_radial_mpc", |r| r.comoving_radial_mpc),
+                    col("comoving_transverse_mpc", |r| r.comoving_transverse_mpc),
+                    col("angular_diameter_mpc", |r| r.angular_diameter_mpc),
+                    col("luminosity_mpc", |r| r.luminosity_mpc),
+                    col("hubble_distance_mpc", |r| r.hubble_distance_mpc),
+                    col("dv_mpc", |r| r.dv_mpc),
+                ],
+                meta: serde_json::json!({
+                    "r_d_mpc": report.r_d_mpc,
+                    "particle_horizon_mpc": report.particle_horizon_mpc,
+                    "cosmology": report.cosmology,
+                    "tool": "ringscale",
+                    "version": crate::VERSION,
+                }),
+            };
+            to_ecsv_string(&table)
         }
         other => Err(Error::input(format!(
             "--format: unknown format '{other}' (use json or ecsv)"

@@ -1,7 +1,11 @@
 //! Command implementations behind the thin CLI in src/main.rs. Each function takes plain option
 //! structs, does the work through the library modules, and writes its outputs atomically.
+pub mod count;
 pub mod distances;
+pub mod fit;
 pub mod inspect;
+pub mod mock;
+pub mod xi;
 
 /// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.
 pub fn resolve_threads(flag: Option<usize>) -> usize {

@@ -1,0 +1,671 @@
+//! `ringscale count`: DD, DR and RR pair counts from catalogues into a counts folder.
+//!
+//! The folder holds, per pairing X in {dd, dr, rr}: `X.ecsv` (one row per bin, for people and
+//! astropy), `X_regions.npy` (delete-one jackknife sums, shape [2, regions, bins]: both ends in
+//! the region, exactly one end) and `X.state.json` (the exact fixed-point histogram and its
+//! normalisation, from which shards merge bit for bit and `ringscale xi` reads). `counts.json`
+//! records the provenance shared by all three.
+use crate::catalog::{file_sha256, read_catalogue, Catalogue, ColumnMap, RowFilter};
+use crate::cosmology::{Cosmology, DistanceTable};
+use crate::estimator::{auto_norm, cross_norm, split_auto_norm, PairNorm, WeightSums};
+use crate::geometry::{positions, Curvature};
+use crate::pairs::{self, from_fixed, Binning, CountConfig, Metric, PairCounts, PointSet};
+use crate::report::{ecsv, json, npy};
+use crate::{Error, Result};
+use serde::{Deserialize, Serialize};
+use std::path::{Path, PathBuf};
+
+/// Where positions come from.
+#[derive(Debug, Clone)]
+pub enum GeometryChoice {
+    /// RA, Dec, z converted with a fiducial cosmology (preset name or TOML file).
+    Survey { cosmology: String },
+    /// X, Y, Z columns in Mpc/h; a periodic box when `box_size` is given.
+    Cartesian { box_size: Option<f64> },
+}
+
+/// How jackknife regions are assigned.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum RegionChoice {
+    None,
+    /// Labels from the catalogues' region column.
+    Column,
+    /// K regions: k-means on the sky for surveys, equal slabs in x for Cartesian catalogues.
+    Assign {
+        k: usize,
+        seed: u64,
+    },
+}
+
+#[derive(Debug, Clone)]
+pub struct CountOptions {
+    pub data: PathBuf,
+    pub randoms: Option<PathBuf>,
+    pub geometry: GeometryChoice,
+    pub columns: ColumnMap,
+    pub filter: RowFilter,
+    pub binning: Binning,
+    pub rr_splits: usize,
+    pub regions: RegionChoice,
+    pub threads: usize,
+    pub shard: (usize, usize),
+    pub out: PathBuf,
+    pub max_memory: Option<u64>,
+    /// Skip the RR count (periodic boxes use analytic RR).
+    pub skip_rr: bool,
+}
+
+/// Provenance shared by the three count files.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct CountMeta {
+    pub tool: String,
+    pub version: String,
+    pub geometry: String,
+    pub fiducial: Option<Cosmology>,
+    pub fiducial_name: Option<String>,
+    pub box_size: Option<f64>,
+    pub binning: Binning,
+    pub n_regions: usize,
+    pub region_method: String,
+    pub rr_splits: usize,
+    pub data: InputInfo,
+    pub randoms: Option<InputInfo>,
+    /// (k, N) of this partial result; None for a complete one.
+    pub shard: Option<(usize, usize)>,
+}
+
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct InputInfo {
+    pub path: String,
+    pub sha256: String,
+    pub rows_in_file: usize,
+    pub rows_used: usize,
+    pub rows_filtered: usize,
+    pub weights: WeightSums,
+}
+
+/// One pairing's exact result: the file `X.state.json`.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct CountState {
+    pub pairing: String,
+    pub meta: CountMeta,
+    pub norm: PairNorm,
+    pub counts: PairCounts,
+}
+
+pub struct CountOutcome {
+    pub states: Vec<CountState>,
+    pub memory_estimate: u64,
+    pub messages: Vec<String>,
+}
+
+fn input_info(cat: &Catalogue, weights: WeightSums) -> Result<InputInfo> {
+    Ok(InputInfo {
+        path: cat.path.display().to_string(),
+        sha256: file_sha256(&cat.path)?,
+        rows_in_file: cat.rows_in_file,
+        rows_used: cat.len(),
+        rows_filtered: cat.rows_filtered,
+        weights,
+    })
+}
+
+/// Parse "LO:HI:N" into N linear (or logarithmic) bins.
+pub fn parse_edges(spec: &str, log: bool) -> Result<Vec<f64>> {
+    let parts: Vec<&str> = spec.split(':').collect();
+    let bad = || Error::input(format!("edges '{spec}': expected LO:HI:N, e.g. 0:200:40"));
+    if parts.len() != 3 {
+        return Err(bad());
+    }
+    let lo: f64 = parts[0].trim().parse().map_err(|_| bad())?;
+    let hi: f64 = parts[1].trim().parse().map_err(|_| bad())?;
+    let n: usize = parts[2].trim().parse().map_err(|_| bad())?;
+    if n == 0 || hi <= lo || !lo.is_finite() || !hi.is_finite() || lo < 0.0 {
+        return Err(Error::input(format!(
+            "edges '{spec}': need 0 <= LO < HI and N >= 1"
+        )));
+    }
+    if log && lo <= 0.0 {
+        return Err(Error::input(format!("log edges '{spec}': LO must be > 0")));
+    }
+    Ok((0..=n)
+        .map(|i| {
+            let t = i as f64 / n as f64;
+            if i == n {
+                hi
+            } else if log {
+                lo * (hi / lo).powf(t)
+            } else {
+                lo + (hi - lo) * t
+            }
+        })
+        .collect())
+}
+
+/// Read explicit edges: numbers separated by whitespace, commas or newlines; '#' comments.
+pub fn read_edges_file(path: &Path) -> Result<Vec<f64>> {
+    let text =
+        std::fs::read_to_string(path).map_err(|e| Error::io(path, "cannot read edges file", e))?;
+    let mut out = Vec::new();
+    for (ln, line) in text.lines().enumerate() {
+        let line = line.split('#').next().unwrap_or("");
+        for tok in line
+            .split(|c: char| c.is_whitespace() || c == ',')
+            .filter(|t| !t.is_empty())
+        {
+            out.push(tok.parse::<f64>().map_err(|_| {
+                Error::input(format!(
+                    "{}: line {}: '{tok}' is not a number",
+                    path.display(),
+                    ln + 1
+                ))
+            })?);
+        }
+    }
+    Ok(out)
+}
+
+/// Parse "k/N" (0-based k).
+pub fn parse_shard(spec: &str) -> Result<(usize, usize)> {
+    let bad = || Error::input(format!("--shard '{spec}': expected k/N with 0 <= k < N"));
+    let (a, b) = spec.split_once('/').ok_or_else(bad)?;
+    let k: usize = a.trim().parse().map_err(|_| bad())?;
+    let n: usize = b.trim().parse().map_err(|_| bad())?;
+    if n == 0 || k >= n {
+        return Err(bad());
+    }
+    Ok((k, n))
+}
+
+fn point_set(cat: &Catalogue, pos: crate::geometry::Positions, region: Vec<u32>) -> PointSet {
+    PointSet {
+        x: pos.x,
+        y: pos.y,
+        z: pos.z,
+        w: cat.w.clone(),
+        redshift: pos.redshift,
+        region,
+    }
+}
+
+/// Every `m`-th object starting at `start`: the deterministic split-random subsets.
+fn subset(p: &PointSet, start: usize, m: usize) -> PointSet {
+    let pick = |v: &Vec<f64>| {
+        v.iter()
+            .skip(start)
+            .step_by(m)
+            .copied()
+            .collect::<Vec<f64>>()
+    };
+    PointSet {
+        x: pick(&p.x),
+        y: pick(&p.y),
+        z: pick(&p.z),
+        w: pick(&p.w),
+        redshift: pick(&p.redshift),
+        region: if p.region.is_empty() {
+            vec![]
+        } else {
+            p.region.iter().skip(start).step_by(m).copied().collect()
+        },
+    }
+}
+
+/// Slab regions along x for Cartesian catalogues: equal widths over the joint x range.
+fn slab_regions(xs: &[&[f64]], k: usize, box_size: Option<f64>) -> Vec<Vec<u32>> {
+    let (lo, hi) = match box_size {
+        Some(l) => (0.0, l),
+        None => xs
+            .iter()
+            .flat_map(|v| v.iter())
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &x| {
+                (a.min(x), b.max(x))
+            }),
+    };
+    let width = (hi - lo).max(f64::MIN_POSITIVE);
+    xs.iter()
+        .map(|v| {
+            v.iter()
+                .map(|&x| {
+                    (((x - lo) / width * k as f64).floor().max(0.0) as usize).min(k - 1) as u32
+                })
+                .collect()
+        })
+        .collect()
+}
+
+pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
+    let mut messages = Vec::new();
+    if opt.rr_splits == 0 {
+        return Err(Error::input("--rr-splits must be >= 1"));
+    }
+    let data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
+    let randoms = opt
+        .randoms
+        .as_ref()
+        .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
+        .transpose()?;
+    for c in std::iter::once(&data).chain(randoms.as_ref()) {
+        if c.rows_filtered > 0 {
+            messages.push(format!(
+                "{}: {} of {} rows removed by the redshift filter",
+                c.path.display(),
+                c.rows_filtered,
+                c.rows_in_file
+            ));
+        }
+    }
+    if let Some(r) = &randoms {
+        if r.len() < data.len() {
+            messages.push(format!(
+                "warning: fewer randoms ({}) than galaxies ({}); the estimator's noise will be dominated by the randoms",
+                r.len(),
+                data.len()
+            ));
+        }
+    }
+
+    // Fiducial and metric.
+    let (table, metric, fid, fid_name, box_size, geometry) = match &opt.geometry {
+        GeometryChoice::Survey { cosmology } => {
+            let src = Cosmology::from_name_or_file(cosmology)?;
+            let zmax = std::iter::once(&data)
+                .chain(randoms.as_ref())
+                .flat_map(|c| c.redshift().iter())
+                .fold(0.0f64, |a, &z| a.max(z));
+            let table = DistanceTable::new(&src.params, (zmax * 1.01 + 0.01).min(1100.0))?;
+            let metric = match Curvature::of(&src.params) {
+                Curvature::Flat => Metric::Euclidean,
+                Curvature::Closed { radius } => Metric::Closed { radius },
+                Curvature::Open { radius } => Metric::Open { radius },
+            };
+            (
+                Some(table),
+                metric,
+                Some(src.params),
+                Some(src.name),
+                None,
+                "survey".to_string(),
+            )
+        }
+        GeometryChoice::Cartesian { box_size: Some(l) } => {
+            if !(*l > 0.0 && l.is_finite()) {
+                return Err(Error::input(format!(
+                    "--box {l}: box size must be positive"
+                )));
+            }
+            if opt.binning.s_max() >= 0.5 * l {
+                return Err(Error::input(format!(
+                    "s_max = {} must be below half the box size ({}) for minimum-image counting",
+                    opt.binning.s_max(),
+                    0.5 * l
+                )));
+            }
+            (
+                None,
+                Metric::Periodic { box_size: *l },
+                None,
+                None,
+                Some(*l),
+                "periodic box".to_string(),
+            )
+        }
+        GeometryChoice::Cartesian { box_size: None } => (
+            None,
+            Metric::Euclidean,
+            None,
+            None,
+            None,
+            "cartesian".to_string(),
+        ),
+    };
+    if let Some(l) = box_size {
+        for c in std::iter::once(&data).chain(randoms.as_ref()) {
+            for (k, col) in c.pos.iter().enumerate() {
+                if let Some(i) = col.iter().position(|&v| !(0.0..l).contains(&v)) {
+                    return Err(Error::input(format!(
+                        "{}: row {}, column '{}': coordinate {} is outside the box [0, {l})",
+                        c.path.display(),
+                        i + 1,
+                        opt.columns.position[k],
+                        col[i]
+                    )));
+                }
+            }
+        }
+    }
+
+    // Jackknife regions.
+    let (mut reg_d, mut reg_r, n_regions, region_method) = match opt.regions {
+        RegionChoice::None => (vec![], vec![], 0, "none".to_string()),
+        RegionChoice::Column => {
+            let d = data
+                .region
+                .clone()
+                .ok_or_else(|| Error::input("regions from a column need --region-column"))?;
+            let r = randoms
+                .as_ref()
+                .map(|c| c.region.clone().unwrap_or_default())
+                .unwrap_or_default();
+            let k = d.iter().chain(&r).max().map_or(0, |&m| m as usize + 1);
+            (d, r, k, "column".to_string())
+        }
+        RegionChoice::Assign { k, seed } => {
+            if k < 2 {
+                return Err(Error::input("--regions: need at least 2 jackknife regions"));
+            }
+            match &opt.geometry {
+                GeometryChoice::Survey { .. } => {
+                    // Centres from all objects together so galaxies and randoms share them.
+                    let mut ra = data.ra().to_vec();
+                    let mut dec = data.dec().to_vec();
+                    if let Some(r) = &randoms {
+                        ra.extend_from_slice(r.ra());
+                        dec.extend_from_slice(r.dec());
+                    }
+                    let labels = pairs::kmeans_sky_regions(&ra, &dec, k, seed)?;
+                    let r = labels[data.len()..].to_vec();
+                    let mut d = labels;
+                    d.truncate(data.len());
+                    (d, r, k, format!("k-means on the sky, seed {seed}"))
+                }
+                GeometryChoice::Cartesian { box_size } => {
+                    let mut xs: Vec<&[f64]> = vec![&data.pos[0]];
+                    if let Some(r) = &randoms {
+                        xs.push(&r.pos[0]);
+                    }
+                    let mut v = slab_regions(&xs, k, *box_size);
+                    let r = if v.len() > 1 {
+                        v.pop().unwrap()
+                    } else {
+                        vec![]
+                    };
+                    (v.pop().unwrap(), r, k, "equal slabs in x".to_string())
+                }
+            }
+        }
+    };
+    if randoms.is_none() {
+        reg_r.clear();
+    }
+    if n_regions == 0 {
+        reg_d.clear();
+        reg_r.clear();
+    }
+
+    let wd = WeightSums::from_weights(&data.w, &reg_d, n_regions)?;
+    let pd = point_set(&data, positions(&data, table.as_ref())?, reg_d);
+    let pr = match &randoms {
+        Some(r) => Some(point_set(r, positions(r, table.as_ref())?, reg_r)),
+        None => None,
+    };
+    let wr = pr
+        .as_ref()
+        .map(|p| WeightSums::from_weights(&p.w, &p.region, n_regions))
+        .transpose()?;
+
+    let cfg = CountConfig {
+        binning: opt.binning.clone(),
+        metric,
+        n_regions,
+        threads: opt.threads,
+        shard: opt.shard,
+    };
+    let n_r = pr.as_ref().map_or(0, |p| p.w.len());
+    let catalog_bytes = (data.bytes() + randoms.as_ref().map_or(0, |r| r.bytes())) as u64;
+    let counting = pairs::memory_estimate_bytes(data.len(), n_r, &cfg);
+    let estimate = 2 * catalog_bytes + counting;
+    if let Some(limit) = opt.max_memory {
+        if estimate > limit {
+            return Err(Error::resource(format!(
+                "memory estimate {:.1} MiB exceeds --max-memory {:.1} MiB",
+                estimate as f64 / 1048576.0,
+                limit as f64 / 1048576.0
+            )));
+        }
+    }
+
+    eprintln!(
+        "memory estimate: {:.1} MiB ({} galaxies, {} randoms, {} bins, {} regions)",
+        estimate as f64 / 1048576.0,
+        data.len(),
+        n_r,
+        opt.binning.n_bins(),
+        n_regions
+    );
+    ensure_writable(&opt.out)?;
+
+    let meta = CountMeta {
+        tool: "ringscale".into(),
+        version: crate::VERSION.into(),
+        geometry,
+        fiducial: fid,
+        fiducial_name: fid_name,
+        box_size,
+        binning: opt.binning.clone(),
+        n_regions,
+        region_method,
+        rr_splits: opt.rr_splits,
+        data: input_info(&data, wd.clone())?,
+        randoms: match (&randoms, &wr) {
+            (Some(r), Some(w)) => Some(input_info(r, w.clone())?),
+            _ => None,
+        },
+        shard: if opt.shard.1 > 1 {
+            Some(opt.shard)
+        } else {
+            None
+        },
+    };
+
+    let mut states = Vec::new();
+    let dd = pairs::count_auto(&pd, &cfg)?;
+    states.push(CountState {
+        pairing: "dd".into(),
+        meta: meta.clone(),
+        norm: auto_norm(&wd)?,
+        counts: dd,
+    });
+    if let (Some(pr), Some(wr)) = (&pr, &wr) {
+        let dr = pairs::count_cross(&pd, pr, &cfg)?;
+        states.push(CountState {
+            pairing: "dr".into(),
+            meta: meta.clone(),
+            norm: cross_norm(&wd, wr)?,
+            counts: dr,
+        });
+        if !opt.skip_rr {
+            let m = opt.rr_splits;
+            let mut rr = PairCounts::zeros(opt.binning.clone(), n_regions);
+            let mut sums = Vec::with_capacity(m);
+            for s in 0..m {
+                let sub = if m == 1 { pr.clone() } else { subset(pr, s, m) };
+                sums.push(WeightSums::from_weights(&sub.w, &sub.region, n_regions)?);
+                rr.merge(&pairs::count_auto(&sub, &cfg)?)?;
+            }
+            states.push(CountState {
+                pairing: "rr".into(),
+                meta: meta.clone(),
+                norm: split_auto_norm(&sums)?,
+                counts: rr,
+            });
+        }
+    }
+    Ok(CountOutcome {
+        states,
+        memory_estimate: estimate,
+        messages,
+    })
+}
+
+/// Create the output folder and prove it is writable before any long computation.
+pub fn ensure_writable(dir: &Path) -> Result<()> {
+    std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, "cannot create output folder", e))?;
+    let probe = dir.join(format!(".ringscale-write-probe-{}", std::process::id()));
+    std::fs::write(&probe, b"probe")
+        .map_err(|e| Error::io(dir, "output folder is not writable", e))?;
+    let _ = std::fs::remove_file(&probe);
+    Ok(())
+}
+
+/// Write a counts folder (creating it); every file atomically.
+pub fn write_folder(dir: &Path, states: &[CountState]) -> Result<()> {
+    std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, "cannot create output folder", e))?;
+    for st in states {
+        write_state(dir, st)?;
+    }
+    if let Some(first) = states.first() {
+        json::write_json(&dir.join("counts.json"), &first.meta)?;
+    }
+    Ok(())
+}
+
+fn write_state(dir: &Path, st: &CountState) -> Result<()> {
+    let c = &st.counts;
+    let b = &c.binning;
+    let (n_s, n_mu) = (b.n_s(), b.n_mu);
+    let nb = b.n_bins();
+    let mut s_lo = Vec::with_capacity(nb);
+    let mut s_hi = Vec::with_capacity(nb);
+    let mut mu_lo = Vec::with_capacity(nb);
+    let mut mu_hi = Vec::with_capacity(nb);
+    for i in 0..n_s {
+        for j in 0..n_mu {
+            s_lo.push(b.s_edges[i]);
+            s_hi.push(b.s_edges[i + 1]);
+            mu_lo.push(j as f64 / n_mu as f64);
+            mu_hi.push((j + 1) as f64 / n_mu as f64);
+        }
+    }
+    let mut cols = vec![
+        ecsv::Column::f64("s_lo", s_lo),
+        ecsv::Column::f64("s_hi", s_hi),
+    ];
+    if n_mu > 1 {
+        cols.push(ecsv::Column::f64("mu_lo", mu_lo));
+        cols.push(ecsv::Column::f64("mu_hi", mu_hi));
+    }
+    cols.push(ecsv::Column {
+        name: "npairs".into(),
+        data: ecsv::ColumnData::U64(c.npairs.clone()),
+    });
+    cols.push(ecsv::Column::f64("wpairs", c.wpairs_f64()));
+    cols.push(ecsv::Column::f64(
+        "wpairs_normalised",
+        c.wpairs_f64().iter().map(|w| w / st.norm.total).collect(),
+    ));
+    cols.push(ecsv::Column::f64("s_mean", c.s_mean()));
+    cols.push(ecsv::Column::f64("z_mean", c.z_mean()));
+    let meta = serde_json::json!({
+        "pairing": st.pairing,
+        "normalisation": st.norm.total,
+        "provenance": st.meta,
+    });
+    ecsv::write_ecsv(
+        &dir.join(format!("{}.ecsv", st.pairing)),
+        &ecsv::Table {
+            columns: cols,
+            meta,
+        },
+    )?;
+    if c.n_regions > 0 {
+        let mut arr = Vec::with_capacity(2 * c.n_regions * nb);
+        arr.extend(c.region_both.iter().map(|&v| from_fixed(v)));
+        arr.extend(c.region_one.iter().map(|&v| from_fixed(v)));
+        npy::write_npy_f64(
+            &dir.join(format!("{}_regions.npy", st.pairing)),
+            &arr,
+            &[2, c.n_regions, nb],
+        )?;
+    }
+    json::write_json(&dir.join(format!("{}.state.json", st.pairing)), st)
+}
+
+/// Read the exact states from a counts folder (dd, and dr/rr when present).
+pub fn read_folder(dir: &Path) -> Result<Vec<CountState>> {
+    let mut out = Vec::new();
+    for p in ["dd", "dr", "rr"] {
+        let path = dir.join(format!("{p}.state.json"));
+        if !path.exists() {
+            continue;
+        }
+        let text =
+            std::fs::read_to_string(&path).map_err(|e| Error::io(&path, "cannot read", e))?;
+        let st: CountState = serde_json::from_str(&text).map_err(|e| {
+            Error::input(format!(
+                "{}: not a ringscale count state: {e}",
+                path.display()
+            ))
+        })?;
+        out.push(st);
+    }
+    if out.is_empty() {
+        return Err(Error::input(format!(
+            "{}: no count files (dd.state.json) found",
+            dir.display()
+        )));
+    }
+    Ok(out)
+}
+
+/// Merge shard folders into one complete result, bit for bit equal to an unsharded count.
+pub fn merge_folders(dirs: &[PathBuf]) -> Result<Vec<CountState>> {
+    if dirs.is_empty() {
+        return Err(Error::input("merge: no shard folders given"));
+    }
+    let sets: Vec<Vec<CountState>> = dirs.iter().map(|d| read_folder(d)).collect::<Result<_>>()?;
+    let n_total = sets[0][0].meta.shard.map_or(1, |s| s.1);
+    let mut seen = vec![false; n_total];
+    for (d, set) in dirs.iter().zip(&sets) {
+        let m = &set[0].meta;
+        let mut m0 = sets[0][0].meta.clone();
+        m0.shard = m.shard;
+        if *m != m0 {
+            return Err(Error::input(format!(
+                "merge: {} comes from a different run (inputs, fiducial, binning, regions or tool version differ)",
+                d.display()
+            )));
+        }
+        let (k, n) = m.shard.unwrap_or((0, 1));
+        if n != n_total {
+            return Err(Error::input(format!(
+                "merge: {} is shard {k}/{n} but others are of {n_total}",
+                d.display()
+            )));
+        }
+        if std::mem::replace(&mut seen[k], true) {
+            return Err(Error::input(format!(
+                "merge: shard {k}/{n} given twice ({})",
+                d.display()
+            )));
+        }
+        if set.len() != sets[0].len() {
+            return Err(Error::input(format!(
+                "merge: {} holds different pairings",
+                d.display()
+            )));
+        }
+    }
+    if let Some(k) = seen.iter().position(|s| !s) {
+        return Err(Error::input(format!(
+            "merge: shard {k}/{n_total} is missing"
+        )));
+    }
+    let mut out = sets[0].clone();
+    for set in &sets[1..] {
+        for (a, b) in out.iter_mut().zip(set) {
+            a.counts.merge(&b.counts)?;
+        }
+    }
+    for st in &mut out {
+        st.meta.shard = None;
+    }
+    Ok(out)
+}
+
+/// Run a count, print the memory estimate first, write the folder.
+pub fn run_and_report(opt: &CountOptions) -> Result<CountOutcome> {
+    let outcome = run(opt)?;
+    write_folder(&opt.out, &outcome.states)?;
+    Ok(outcome)
+}
