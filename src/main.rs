@@ -108,6 +108,33 @@ enum Cmd {
     /// Lognormal mock catalogues.
     #[command(subcommand)]
     Mock(MockCmd),
+    /// What D_V/r_d measurements say about spatial curvature (Omega_k).
+    Curvature {
+        /// `ringscale fit` result files (fit.json) and/or tables of z_eff, D_V/r_d, error.
+        #[arg(long, required = true, num_args = 1..)]
+        bao: Vec<PathBuf>,
+        /// Priors TOML (default: r_d = 147.09 +- 0.26 Mpc, flat Omega_k, Omega_m, h).
+        #[arg(long)]
+        priors: Option<PathBuf>,
+        /// MCMC seed.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Output folder.
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Run the whole chain on the shipped demo catalogues.
+    Demo {
+        /// Output folder.
+        #[arg(long, default_value = "demo_out")]
+        out: PathBuf,
+        /// Folder holding the demo catalogues.
+        #[arg(long, default_value = "demo_catalogs")]
+        catalogs: PathBuf,
+        /// Threads (default: SLURM_CPUS_PER_TASK, else all cores).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
     /// Read, validate and summarise a catalogue.
     Inspect {
         catalogue: PathBuf,
@@ -172,6 +199,9 @@ enum MockCmd {
         /// Output catalogue (.fits or .csv).
         #[arg(long)]
         out: PathBuf,
+        /// Store single-precision columns (half the size).
+        #[arg(long)]
+        single_precision: bool,
     },
     /// Galaxies and randoms in a sky footprint and redshift range.
     Survey {
@@ -207,7 +237,18 @@ enum MockCmd {
         /// Random catalogue output (.fits or .csv).
         #[arg(long)]
         out_randoms: PathBuf,
+        /// Store single-precision columns (half the size).
+        #[arg(long)]
+        single_precision: bool,
     },
+}
+
+fn precision(single: bool) -> ringscale::catalog::Precision {
+    if single {
+        ringscale::catalog::Precision::Single
+    } else {
+        ringscale::catalog::Precision::Double
+    }
 }
 
 fn parse_range(spec: &str, what: &str) -> Result<(f64, f64)> {
@@ -465,6 +506,7 @@ fn run(cli: Cli) -> Result<()> {
                 bias,
                 seed,
                 out,
+                single_precision,
             } => {
                 let cfg = ringscale::mock::BoxMockConfig {
                     n_grid,
@@ -473,7 +515,7 @@ fn run(cli: Cli) -> Result<()> {
                     bias,
                     seed,
                 };
-                let info = app::mock::run_box(&cosmology, &cfg, &out)?;
+                let info = app::mock::run_box(&cosmology, &cfg, &out, precision(single_precision))?;
                 eprintln!("wrote {} galaxies to {}", info.n_galaxies, out.display());
             }
             MockCmd::Survey {
@@ -489,6 +531,7 @@ fn run(cli: Cli) -> Result<()> {
                 random_factor,
                 out_galaxies,
                 out_randoms,
+                single_precision,
             } => {
                 let footprint = match (cap, polygon) {
                     (Some(c), None) => app::mock::parse_cap(&c)?,
@@ -510,7 +553,13 @@ fn run(cli: Cli) -> Result<()> {
                     seed,
                     random_factor,
                 };
-                let info = app::mock::run_survey(&cosmology, &cfg, &out_galaxies, &out_randoms)?;
+                let info = app::mock::run_survey(
+                    &cosmology,
+                    &cfg,
+                    &out_galaxies,
+                    &out_randoms,
+                    precision(single_precision),
+                )?;
                 eprintln!(
                     "wrote {} galaxies to {} and {} randoms to {}",
                     info.n_galaxies,
@@ -520,6 +569,38 @@ fn run(cli: Cli) -> Result<()> {
                 );
             }
         },
+        Cmd::Curvature {
+            bao,
+            priors,
+            seed,
+            out,
+        } => {
+            let settings = ringscale::inference::SamplerSettings {
+                seed,
+                ..Default::default()
+            };
+            let r = app::curvature::run(&app::curvature::CurvatureOptions {
+                bao,
+                priors,
+                settings,
+                out: out.clone(),
+            })?;
+            print!("{}", app::curvature::render(&r));
+            println!("wrote {}", out.display());
+        }
+        Cmd::Demo {
+            out,
+            catalogs,
+            threads,
+        } => {
+            let opt = app::demo::DemoOptions {
+                catalogs,
+                out: out.clone(),
+                threads: app::resolve_threads(threads),
+            };
+            let s = app::demo::run(&opt)?;
+            print!("{}", app::demo::render(&s, &out));
+        }
         Cmd::Inspect {
             catalogue,
             columns,

@@ -1,6 +1,6 @@
 //! `ringscale mock`: lognormal catalogues (periodic box or survey) from the EH98 spectrum of a
 //! chosen true cosmology, written as FITS (or CSV) with the settings in the header.
-use crate::catalog::{write_catalogue, OutColumn};
+use crate::catalog::{write_catalogue_with, OutColumn, Precision};
 use crate::cosmology::power::LinearPower;
 use crate::cosmology::Cosmology;
 use crate::mock::{self, BoxMockConfig, Footprint, MockInfo, NzSpec, SurveyMockConfig};
@@ -78,7 +78,12 @@ fn power_of(c: &Cosmology) -> impl Fn(f64) -> f64 + Sync {
     move |k| p.p_lin(k)
 }
 
-pub fn run_box(cosmology: &str, cfg: &BoxMockConfig, out: &Path) -> Result<MockInfo> {
+pub fn run_box(
+    cosmology: &str,
+    cfg: &BoxMockConfig,
+    out: &Path,
+    precision: Precision,
+) -> Result<MockInfo> {
     let src = Cosmology::from_name_or_file(cosmology)?;
     let (cat, info) = mock::lognormal_box_with_info(&power_of(&src.params), cfg)?;
     let cols = [
@@ -95,7 +100,7 @@ pub fn run_box(cosmology: &str, cfg: &BoxMockConfig, out: &Path) -> Result<MockI
             data: &cat.z,
         },
     ];
-    write_catalogue(out, &cols, &header(&info, &src.name))?;
+    write_catalogue_with(out, &cols, &header(&info, &src.name), precision)?;
     Ok(info)
 }
 
@@ -104,6 +109,7 @@ pub fn run_survey(
     cfg: &SurveyMockConfig,
     galaxies: &Path,
     randoms: &Path,
+    precision: Precision,
 ) -> Result<MockInfo> {
     let src = Cosmology::from_name_or_file(cosmology)?;
     let (g, r, info) = mock::lognormal_survey_with_info(&power_of(&src.params), &src.params, cfg)?;
@@ -127,7 +133,7 @@ pub fn run_survey(
                 data: &cat.w,
             },
         ];
-        write_catalogue(path, &cols, &h)?;
+        write_catalogue_with(path, &cols, &h, precision)?;
     }
     Ok(info)
 }

@@ -1,6 +1,8 @@
 //! Command implementations behind the thin CLI in src/main.rs. Each function takes plain option
 //! structs, does the work through the library modules, and writes its outputs atomically.
 pub mod count;
+pub mod curvature;
+pub mod demo;
 pub mod distances;
 pub mod fit;
 pub mod inspect;

@@ -1,6 +1,6 @@
 //! CSV catalogues: a header row, '#' comment lines, optional UTF-8 BOM, LF or CRLF line ends.
 //! The requested columns are parsed in one streaming pass into f64 vectors.
-use super::{ColumnSource, OutColumn};
+use super::{ColumnSource, OutColumn, Precision};
 use crate::{Error, Result};
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -134,6 +134,7 @@ pub(crate) fn write_csv(
     path: &Path,
     columns: &[OutColumn],
     header: &[(String, String)],
+    precision: Precision,
 ) -> Result<()> {
     let f = std::fs::File::create(path).map_err(|e| Error::io(path, "cannot create", e))?;
     let mut w = std::io::BufWriter::new(f);
@@ -152,7 +153,10 @@ pub(crate) fn write_csv(
                 line.push(',');
             }
             // Debug formatting is the shortest text that reads back to the same bits.
-            line.push_str(&format!("{:?}", c.data[i]));
+            match precision {
+                Precision::Double => line.push_str(&format!("{:?}", c.data[i])),
+                Precision::Single => line.push_str(&format!("{:?}", c.data[i] as f32)),
+            }
         }
         line.push('\n');
         w.write_all(line.as_bytes()).map_err(io)?;

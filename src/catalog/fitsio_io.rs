@@ -1,6 +1,6 @@
 //! FITS binary-table catalogues through cfitsio (built from source by the `fitsio` crate).
 //! Columns are read in chunks of `CHUNK_ROWS` rows so memory stays at the output columns.
-use super::{ColumnSource, OutColumn};
+use super::{ColumnSource, OutColumn, Precision};
 use crate::{Error, Result};
 use fitsio::hdu::HduInfo;
 use fitsio::tables::{ColumnDataDescription, ColumnDataType, ColumnDescription};
@@ -166,6 +166,7 @@ pub(crate) fn write_fits(
     path: &Path,
     columns: &[OutColumn],
     header: &[(String, String)],
+    precision: Precision,
 ) -> Result<()> {
     let err = |e: fitsio::errors::Error| {
         Error::resource(format!("{}: cannot write FITS: {e}", path.display()))
@@ -174,15 +175,22 @@ pub(crate) fn write_fits(
     let descs = columns
         .iter()
         .map(|c| {
-            ColumnDescription::new(c.name)
-                .with_type(ColumnDataType::Double)
-                .create()
+            let t = match precision {
+                Precision::Single => ColumnDataType::Float,
+                Precision::Double => ColumnDataType::Double,
+            };
+            ColumnDescription::new(c.name).with_type(t).create()
         })
         .collect::<std::result::Result<Vec<_>, _>>()
         .map_err(err)?;
     let hdu = f.create_table("CATALOG", &descs).map_err(err)?;
     for c in columns {
-        hdu.write_col(&mut f, c.name, c.data).map_err(err)?;
+        if precision == Precision::Single {
+            let v: Vec<f32> = c.data.iter().map(|&x| x as f32).collect();
+            hdu.write_col(&mut f, c.name, &v).map_err(err)?;
+        } else {
+            hdu.write_col(&mut f, c.name, c.data).map_err(err)?;
+        }
     }
     for (k, v) in header {
         hdu.write_key(&mut f, k, v.as_str()).map_err(err)?;

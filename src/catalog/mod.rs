@@ -351,12 +351,30 @@ pub struct OutColumn<'a> {
     pub data: &'a [f64],
 }
 
+/// Storage precision of written columns. Single precision halves file size (used for the
+/// shipped demo catalogues: 1e-7 relative is 2e-4 Mpc/h at 2000 Mpc/h).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Precision {
+    Double,
+    Single,
+}
+
 /// Write columns to FITS or CSV (by extension) atomically, with header key/values
 /// (FITS header cards; CSV `# key = value` comment lines).
 pub fn write_catalogue(
     path: &Path,
     columns: &[OutColumn],
     header: &[(String, String)],
+) -> Result<()> {
+    write_catalogue_with(path, columns, header, Precision::Double)
+}
+
+/// As `write_catalogue`, choosing the stored precision.
+pub fn write_catalogue_with(
+    path: &Path,
+    columns: &[OutColumn],
+    header: &[(String, String)],
+    precision: Precision,
 ) -> Result<()> {
     let n = columns.first().map_or(0, |c| c.data.len());
     if columns.iter().any(|c| c.data.len() != n) {
@@ -378,8 +396,8 @@ pub fn write_catalogue(
     ));
     let _ = std::fs::remove_file(&tmp);
     let res = match format_of(path)? {
-        Format::Fits => fitsio_io::write_fits(&tmp, columns, header),
-        Format::Csv => csvio::write_csv(&tmp, columns, header),
+        Format::Fits => fitsio_io::write_fits(&tmp, columns, header, precision),
+        Format::Csv => csvio::write_csv(&tmp, columns, header, precision),
     };
     if let Err(e) = res {
         let _ = std::fs::remove_file(&tmp);

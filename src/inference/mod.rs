@@ -616,7 +616,25 @@ fn statement(
             s.push_str("The 95% interval reaches the edge of the Omega_k prior range, so it reflects the prior as much as the data. ");
         }
     }
-    if degenerate || prior_limited {
+    // Fewer distinct redshifts than free parameters: the data fix only combinations of them,
+    // whatever the sampled correlations look like (they can be masked by the prior box).
+    let mut zs: Vec<f64> = model.data.iter().map(|d| d.z_eff).collect();
+    zs.sort_by(f64::total_cmp);
+    zs.dedup_by(|a, b| (*a - *b).abs() < 1e-6);
+    // Parameters that only a flat prior bounds must be fixed by the data.
+    let n_free = model
+        .free
+        .iter()
+        .filter(|&&i| matches!(model.priors[i], Prior::Flat { .. }))
+        .count();
+    let underdetermined = zs.len() < n_free;
+    if underdetermined {
+        s.push_str(&format!(
+            "{} measured redshift(s) cannot separate the {} free parameters: each D_V/r_d fixes one combination of Omega_m, Omega_k and h r_d, so Omega_k stays degenerate with Omega_m and h and its interval mostly reflects the prior ranges. ",
+            zs.len(),
+            n_free
+        ));
+    } else if degenerate || prior_limited {
         s.push_str(&format!(
             "D_V/r_d fixes only a combination of Omega_m, Omega_k and h r_d, so with an r_d prior alone Omega_k stays degenerate with Omega_m and h (correlations {:.2} and {:.2}). ",
             c.corr_omega_k_omega_m, c.corr_omega_k_h

@@ -40,7 +40,7 @@ pub struct Model {
     pub free: Vec<usize>,
     /// Bound on the derived Omega_m in the physical parametrisation.
     omega_m_bound: Option<Prior>,
-    data: Vec<BaoPoint>,
+    pub(crate) data: Vec<BaoPoint>,
     omega_r_h2: f64,
     omega_nu_h2: f64,
     omega_gamma_h2: f64,
