@@ -32,9 +32,18 @@ def main():
     print(f"distances ECSV read by astropy: {len(t)} rows, {'bit-identical' if ok else 'MISMATCH'}")
 
     # Count outputs: ECSV columns and the per-region NPY array.
-    counts = os.environ.get("RINGSCALE_COUNTS_DIR")
-    if counts:
+    with tempfile.TemporaryDirectory() as tmp:
+        rng = np.random.default_rng(3)
+        pts = rng.uniform(0, 300, (2000, 3))
+        cat = os.path.join(tmp, "pts.csv")
+        np.savetxt(cat, pts, delimiter=",", header="X,Y,Z", comments="", fmt="%.17g")
+        counts = os.path.join(tmp, "counts")
+        subprocess.run([BIN, "count", "--data", cat, "--cartesian", "--box", "300", "--edges", "0:100:10",
+                        "--regions", "5", "--out", counts], check=True, capture_output=True)
         t = Table.read(os.path.join(counts, "dd.ecsv"), format="ascii.ecsv")
+        if t.meta["provenance"]["box_size"] != 300.0 or t.meta["provenance"]["binning"]["s_edges"][-1] != 100.0:
+            print("FAIL count meta", t.meta["provenance"])
+            ok = False
         st = json.load(open(os.path.join(counts, "dd.state.json")))
         if list(t["npairs"]) != st["counts"]["npairs"]:
             print("FAIL dd.ecsv npairs differ from the exact state")
