@@ -221,14 +221,26 @@ pub fn run(opt: &FitOptions) -> Result<FitOutcome> {
             w += inp.dd_wpairs[i];
         }
     }
+    // A periodic box carries no redshifts: alpha is then relative to the template's acoustic
+    // scale (r_d h of the template cosmology, in Mpc/h) and no distance is formed.
     let z_eff = if w > 0.0 { wz / w } else { f64::NAN };
-    if z_eff.is_nan() || z_eff <= 0.0 {
-        return Err(Error::input(
-            "no redshifts recorded with the pairs (a box?): cannot form D_V/r_d at z_eff",
-        ));
-    }
     let rd_fid = fid.r_d();
-    let dv = dv_over_rd(&fit, &fid, z_eff, rd_fid)?;
+    let dv = if z_eff > 0.0 {
+        dv_over_rd(&fit, &fid, z_eff, rd_fid)?
+    } else {
+        crate::fit::DvOverRd {
+            z_eff: f64::NAN,
+            alpha: fit.alpha,
+            dv_fid_mpc: f64::NAN,
+            rd_fid_mpc: rd_fid,
+            dv_over_rd: f64::NAN,
+            sigma: f64::NAN,
+            sigma_lo: f64::NAN,
+            sigma_hi: f64::NAN,
+            lower_open: fit.lower_open,
+            upper_open: fit.upper_open,
+        }
+    };
     let src = crate::cosmology::CosmologySource {
         name: fid_name,
         params: fid,
