@@ -21,7 +21,7 @@ use crate::report::ecsv::{self, Column, ColumnData, Table};
 use crate::report::json;
 use crate::{Error, Result};
 use serde::Serialize;
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 /// The fiducials to sweep over.
 #[derive(Debug, Clone)]
@@ -472,6 +472,7 @@ mod tests {
     use crate::catalog::{write_catalogue, OutColumn};
     use crate::cosmology::power::LinearPower;
     use crate::mock::{lognormal_survey, Footprint, NzSpec, SurveyMockConfig};
+    use std::path::Path;
 
     fn write(path: &Path, c: &crate::mock::SkyCatalogue) {
         let cols = [
