@@ -79,6 +79,8 @@ enum Cmd {
     },
     /// Count DD (and DR, RR with randoms) pairs into a counts folder.
     Count(Box<CountArgs>),
+    /// Count, estimate and fit under several fiducial cosmologies in one traversal of the pairs.
+    Sweep(Box<SweepArgs>),
     /// Merge the folders of `count --shard k/N` runs into one, bit for bit.
     Merge {
         /// Output counts folder.
@@ -365,6 +367,124 @@ struct CountArgs {
     columns: ColumnArgs,
 }
 
+#[derive(Args)]
+struct SweepArgs {
+    /// Galaxy catalogue (FITS or CSV, RA/DEC/Z).
+    #[arg(long)]
+    data: PathBuf,
+    /// Random catalogue (FITS or CSV, RA/DEC/Z).
+    #[arg(long)]
+    randoms: PathBuf,
+    /// Base cosmology (preset or TOML) whose Omega_k is replaced by each --omega-k-list value.
+    #[arg(long, default_value = "planck18")]
+    cosmology: String,
+    /// Comma-separated Omega_k values of the fiducials (physical densities and h fixed).
+    #[arg(long, allow_hyphen_values = true, group = "fids")]
+    omega_k_list: Option<String>,
+    /// Comma-separated cosmology presets or TOML files, one per fiducial.
+    #[arg(long, group = "fids")]
+    cosmology_files: Option<String>,
+    /// Linear separation bins LO:HI:N in Mpc/h.
+    #[arg(long, default_value = "0:200:40")]
+    edges: String,
+    /// Split the randoms into M disjoint subsets for RR.
+    #[arg(long, default_value_t = 1)]
+    rr_splits: usize,
+    /// Assign K jackknife regions (k-means on the sky).
+    #[arg(long)]
+    regions: Option<usize>,
+    /// Seed of the k-means region assignment.
+    #[arg(long, default_value_t = 1)]
+    region_seed: u64,
+    /// Also measure every curved fiducial with the radial-only mapping and the flat formula.
+    #[arg(long)]
+    naive: bool,
+    /// Threads (default: SLURM_CPUS_PER_TASK, else all cores).
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Fit range LO:HI in Mpc/h.
+    #[arg(long, default_value = "50:150")]
+    fit_range: String,
+    /// BAO damping scale Sigma_nl in Mpc/h.
+    #[arg(long, default_value_t = 8.0)]
+    sigma_nl: f64,
+    /// Skip the PNG/SVG plots of the per-fiducial fits.
+    #[arg(long)]
+    no_plots: bool,
+    /// Output folder.
+    #[arg(long)]
+    out: PathBuf,
+    #[command(flatten)]
+    columns: ColumnArgs,
+}
+
+fn sweep_options(a: &SweepArgs) -> Result<app::sweep::SweepOptions> {
+    use app::count::{parse_edges, RegionChoice};
+    use app::sweep::FiducialList;
+    let list = |s: &str| -> Vec<String> {
+        s.split(',')
+            .map(|t| t.trim().to_string())
+            .filter(|t| !t.is_empty())
+            .collect()
+    };
+    let fiducials = match (&a.omega_k_list, &a.cosmology_files) {
+        (Some(v), _) => FiducialList::OmegaK {
+            base: a.cosmology.clone(),
+            values: list(v)
+                .iter()
+                .map(|t| {
+                    t.parse::<f64>().map_err(|_| {
+                        ringscale::Error::input(format!("--omega-k-list: '{t}' is not a number"))
+                    })
+                })
+                .collect::<Result<_>>()?,
+        },
+        (_, Some(f)) => FiducialList::Files(list(f)),
+        _ => {
+            return Err(ringscale::Error::input(
+                "give the fiducials: --omega-k-list or --cosmology-files",
+            ))
+        }
+    };
+    let regions = match (a.regions, &a.columns.region_column) {
+        (Some(_), Some(_)) => {
+            return Err(ringscale::Error::input(
+                "use either --regions K or --region-column, not both",
+            ))
+        }
+        (Some(k), None) => RegionChoice::Assign {
+            k,
+            seed: a.region_seed,
+        },
+        (None, Some(_)) => RegionChoice::Column,
+        (None, None) => RegionChoice::None,
+    };
+    let (s_min, s_max) = parse_range(&a.fit_range, "--fit-range")?;
+    Ok(app::sweep::SweepOptions {
+        data: a.data.clone(),
+        randoms: a.randoms.clone(),
+        fiducials,
+        columns: a.columns.sky_map(),
+        filter: a.columns.filter(),
+        binning: ringscale::pairs::Binning::new(parse_edges(&a.edges, false)?, 1)?,
+        rr_splits: a.rr_splits,
+        regions,
+        naive: a.naive,
+        threads: app::resolve_threads(a.threads),
+        out: a.out.clone(),
+        fit: ringscale::fit::IsotropicOptions {
+            s_min,
+            s_max,
+            ..Default::default()
+        },
+        template: ringscale::fit::TemplateOptions {
+            sigma_nl: a.sigma_nl,
+            ..Default::default()
+        },
+        plots: !a.no_plots,
+    })
+}
+
 fn count_options(a: &CountArgs) -> Result<app::count::CountOptions> {
     use app::count::*;
     let edges = match (&a.edges, &a.log_edges, &a.edges_file) {
@@ -443,6 +563,26 @@ fn run(cli: Cli) -> Result<()> {
             let zs = app::distances::parse_redshifts(&z)?;
             let report = app::distances::compute(&src, &zs);
             print!("{}", app::distances::render(&report, &format)?);
+        }
+        Cmd::Sweep(a) => {
+            let s = app::sweep::run(&sweep_options(&a)?)?;
+            for r in &s.rows {
+                println!(
+                    "{:28} {:6} alpha = {:.4} +- {:.4}  D_V/r_d = {:.3} +- {:.3}  ({:+.2} sigma vs {})",
+                    r.label,
+                    r.mapping,
+                    r.alpha,
+                    r.alpha_err,
+                    r.dv_over_rd,
+                    r.dv_over_rd_err,
+                    r.deviation_sigma,
+                    s.reference
+                );
+            }
+            println!(
+                "spread of D_V/r_d over exact fiducials: {:.3} sigma",
+                s.exact_spread_sigma
+            );
         }
         Cmd::Count(a) => {
             let opt = count_options(&a)?;

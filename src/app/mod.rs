@@ -7,6 +7,7 @@ pub mod distances;
 pub mod fit;
 pub mod inspect;
 pub mod mock;
+pub mod sweep;
 pub mod xi;
 
 /// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.

@@ -15,6 +15,7 @@
 mod counts;
 mod kernel;
 mod regions;
+mod sweep;
 mod tree;
 
 #[cfg(test)]
@@ -22,6 +23,9 @@ mod tests;
 
 pub use counts::{from_fixed, to_fixed, Binning, PairCounts, FRAC_BITS};
 pub use regions::kmeans_sky_regions;
+pub use sweep::{
+    sweep_auto, sweep_auto_reference, sweep_cross, sweep_cross_reference, SweepConfig, MAX_VARIANTS,
+};
 
 use kernel::{Acc, Binner, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER};
 use rayon::prelude::*;

@@ -1,0 +1,934 @@
+//! Pair counts under several fiducial mappings in one traversal ("sweep").
+//!
+//! Each variant k is a catalogue's positions under one fiducial plus the metric its separations
+//! are measured in (a curved fiducial with its geodesic metric, or a "naive" variant: curved
+//! radial distances with the flat metric). One KD partition is built on variant 0's embedding;
+//! every node then carries one 4-D bounding box per variant, built from that variant's own
+//! embedding coordinates. A node pair is pruned for variant k when the conservative q-range of
+//! its two k-boxes misses variant k's padded [q_lo, q_hi); a child inherits the set of variants
+//! still alive (child boxes lie inside parent boxes) and the pair is dropped when none is left.
+//! The partition is the same for all variants, so the search radius is automatically
+//! conservative for every fiducial, and a leaf pair runs the per-pair kernel only for the
+//! variants alive there.
+//!
+//! Per pair and variant the kernel evaluates exactly the same floating-point expressions as the
+//! single-fiducial engine (`pair_q` on the same embedding coordinates from `prepare`, the same
+//! q-space bin edges, mu and s formulas), so bin membership, pair numbers and every single pair
+//! term are bitwise those of `count_auto` / `count_cross`. Sums are grouped per top-level node
+//! pair of the shared tree (f64 in a fixed order, then fixed point), so results are bitwise
+//! identical for any thread count; sums of non-dyadic terms (w1 w2 s, w1 w2 z) can differ from a
+//! single-fiducial count in the last f64 bits of a task sum because that count groups by its own
+//! tree.
+use super::kernel::{mu_flat, pair_q, s_of_q, Binner, Geo, Pts, CLO, FLAT, OPE, PER};
+use super::{check_config, permute, prepare, to_fixed, Binning, CountConfig, Metric};
+use super::{PairCounts, PointSet};
+use rayon::prelude::*;
+
+/// Binning and work split shared by all variants of a sweep.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SweepConfig {
+    pub binning: Binning,
+    /// Number of jackknife regions (0 = none).
+    pub n_regions: usize,
+    /// Worker threads (0 = all cores). Results do not depend on it.
+    pub threads: usize,
+}
+
+/// At most this many variants per sweep (the alive set is a bit mask).
+pub const MAX_VARIANTS: usize = 32;
+
+/// Unordered distinct pairs of one catalogue under every variant: `sets[k]` holds the positions
+/// under variant k (same objects in the same order for all k), counted in `metrics[k]`.
+/// Returns one `PairCounts` per variant.
+pub fn sweep_auto(
+    sets: &[PointSet],
+    metrics: &[Metric],
+    cfg: &SweepConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    sweep_impl(sets, None, metrics, cfg)
+}
+
+/// All pairs (i in a, j in b) under every variant.
+pub fn sweep_cross(
+    a: &[PointSet],
+    b: &[PointSet],
+    metrics: &[Metric],
+    cfg: &SweepConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    sweep_impl(a, Some(b), metrics, cfg)
+}
+
+/// Reference for `sweep_auto`: one separate single-fiducial count per variant.
+pub fn sweep_auto_reference(
+    sets: &[PointSet],
+    metrics: &[Metric],
+    cfg: &SweepConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    check_lists(sets, None, metrics)?;
+    sets.iter()
+        .zip(metrics)
+        .map(|(p, m)| super::count_auto(p, &single_cfg(cfg, *m)))
+        .collect()
+}
+
+/// Reference for `sweep_cross`: one separate single-fiducial count per variant.
+pub fn sweep_cross_reference(
+    a: &[PointSet],
+    b: &[PointSet],
+    metrics: &[Metric],
+    cfg: &SweepConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    check_lists(a, Some(b), metrics)?;
+    a.iter()
+        .zip(b)
+        .zip(metrics)
+        .map(|((p, q), m)| super::count_cross(p, q, &single_cfg(cfg, *m)))
+        .collect()
+}
+
+fn single_cfg(cfg: &SweepConfig, metric: Metric) -> CountConfig {
+    CountConfig {
+        binning: cfg.binning.clone(),
+        metric,
+        n_regions: cfg.n_regions,
+        threads: cfg.threads,
+        shard: (0, 1),
+    }
+}
+
+fn check_lists(a: &[PointSet], b: Option<&[PointSet]>, metrics: &[Metric]) -> crate::Result<()> {
+    let k = metrics.len();
+    if k == 0 || k > MAX_VARIANTS {
+        return Err(crate::Error::input(format!(
+            "sweep: need 1 to {MAX_VARIANTS} fiducial variants, got {k}"
+        )));
+    }
+    for (name, sets) in std::iter::once(("catalogue A", a)).chain(b.map(|b| ("catalogue B", b))) {
+        if sets.len() != k {
+            return Err(crate::Error::input(format!(
+                "sweep: {name} has {} position sets for {k} variants",
+                sets.len()
+            )));
+        }
+        let n = sets[0].len();
+        if let Some(v) = sets.iter().position(|s| s.len() != n) {
+            return Err(crate::Error::input(format!(
+                "sweep: {name}: variant {v} has {} objects, variant 0 has {n}",
+                sets[v].len()
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Tree node of the shared partition (boxes are stored per variant in `STree`).
+#[derive(Debug, Clone, Copy)]
+struct SNode {
+    start: usize,
+    end: usize,
+    /// Child indices; `left == 0` marks a leaf.
+    left: u32,
+    right: u32,
+}
+
+impl SNode {
+    fn is_leaf(&self) -> bool {
+        self.left == 0
+    }
+    fn len(&self) -> usize {
+        self.end - self.start
+    }
+}
+
+const LEAF: usize = 32;
+
+/// Shared partition plus per-variant boxes: `lo[node * nv + k]`.
+struct STree {
+    nodes: Vec<SNode>,
+    nv: usize,
+    lo: Vec<[f64; 4]>,
+    hi: Vec<[f64; 4]>,
+}
+
+/// Build the partition over variant 0's spatial embedding (median split of the widest axis),
+/// then fill every node's box for every variant. Returns the tree and the permutation (tree
+/// position p holds original object perm[p]).
+fn build_tree(pts: &[Pts]) -> (STree, Vec<usize>) {
+    let c = &pts[0].c;
+    let n = c[0].len();
+    let mut perm: Vec<usize> = (0..n).collect();
+    let mut nodes = Vec::with_capacity(2 * n / LEAF + 2);
+    split_rec(c, &mut perm, 0, n, &mut nodes);
+    let nv = pts.len();
+    let mut lo = vec![[f64::INFINITY; 4]; nodes.len() * nv];
+    let mut hi = vec![[f64::NEG_INFINITY; 4]; nodes.len() * nv];
+    // children have larger indices than parents: fill leaves from points, parents from children
+    for id in (0..nodes.len()).rev() {
+        let nd = nodes[id];
+        for k in 0..nv {
+            let (mut l, mut h) = ([f64::INFINITY; 4], [f64::NEG_INFINITY; 4]);
+            if nd.is_leaf() {
+                for &p in &perm[nd.start..nd.end] {
+                    for d in 0..4 {
+                        l[d] = l[d].min(pts[k].c[d][p]);
+                        h[d] = h[d].max(pts[k].c[d][p]);
+                    }
+                }
+            } else {
+                for ch in [nd.left as usize, nd.right as usize] {
+                    for d in 0..4 {
+                        l[d] = l[d].min(lo[ch * nv + k][d]);
+                        h[d] = h[d].max(hi[ch * nv + k][d]);
+                    }
+                }
+            }
+            lo[id * nv + k] = l;
+            hi[id * nv + k] = h;
+        }
+    }
+    (STree { nodes, nv, lo, hi }, perm)
+}
+
+fn split_rec(
+    c: &[Vec<f64>; 4],
+    perm: &mut [usize],
+    start: usize,
+    end: usize,
+    nodes: &mut Vec<SNode>,
+) -> u32 {
+    let id = nodes.len();
+    nodes.push(SNode {
+        start,
+        end,
+        left: 0,
+        right: 0,
+    });
+    if end - start > LEAF {
+        let (mut lo, mut hi) = ([f64::INFINITY; 3], [f64::NEG_INFINITY; 3]);
+        for &p in &perm[start..end] {
+            for d in 0..3 {
+                lo[d] = lo[d].min(c[d][p]);
+                hi[d] = hi[d].max(c[d][p]);
+            }
+        }
+        let dim = (0..3)
+            .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
+            .unwrap_or(0);
+        let mid = (start + end) / 2;
+        perm[start..end]
+            .select_nth_unstable_by(mid - start, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
+        let l = split_rec(c, perm, start, mid, nodes);
+        let r = split_rec(c, perm, mid, end, nodes);
+        nodes[id].left = l;
+        nodes[id].right = r;
+    }
+    id as u32
+}
+
+/// Conservative [qmin, qmax] of q over all pairs of points from two 4-D boxes, for metric kind
+/// `kind`. Same argument as the single-fiducial engine: each coordinate difference lies in
+/// [dmin, dmax]; q adds + terms (spatial, and t for closed space) and subtracts the t term for
+/// open space; the operation order matches `pair_q` (spatial squares first, then t).
+fn box_bounds(
+    kind: u8,
+    g: &Geo,
+    alo: &[f64; 4],
+    ahi: &[f64; 4],
+    blo: &[f64; 4],
+    bhi: &[f64; 4],
+) -> (f64, f64) {
+    let mut dmin = [0.0f64; 4];
+    let mut dmax = [0.0f64; 4];
+    for d in 0..4 {
+        let lo = blo[d] - ahi[d];
+        let hi = bhi[d] - alo[d];
+        if kind == PER && d < 3 {
+            let l = g.box_l;
+            dmin[d] = if lo <= 0.0 && hi >= 0.0 {
+                0.0
+            } else if lo > 0.0 {
+                lo.min(l - hi).max(0.0)
+            } else {
+                (-hi).min(lo + l).max(0.0)
+            };
+            dmax[d] = lo.abs().max(hi.abs()).min(g.half_l);
+        } else {
+            dmin[d] = lo.max(-hi).max(0.0);
+            dmax[d] = lo.abs().max(hi.abs());
+        }
+    }
+    let mut qmin = dmin[0] * dmin[0] + dmin[1] * dmin[1] + dmin[2] * dmin[2];
+    let mut qmax = dmax[0] * dmax[0] + dmax[1] * dmax[1] + dmax[2] * dmax[2];
+    if kind == CLO {
+        qmin += dmin[3] * dmin[3];
+        qmax += dmax[3] * dmax[3];
+    } else if kind == OPE {
+        qmin -= dmax[3] * dmax[3];
+        qmax -= dmin[3] * dmin[3];
+    }
+    (qmin, qmax)
+}
+
+/// Per-task, per-variant f64 sums: [count, w1w2, w1w2 s, w1w2 (z1+z2)/2] per bin plus region
+/// sums; flushed to fixed point once per task.
+struct VAcc {
+    nb: usize,
+    nreg: usize,
+    h: Vec<[f64; 4]>,
+    rb: Vec<f64>,
+    ro: Vec<f64>,
+    rdirty: Vec<bool>,
+    rlist: Vec<usize>,
+}
+
+impl VAcc {
+    fn new(nb: usize, nreg: usize) -> Self {
+        VAcc {
+            nb,
+            nreg,
+            h: vec![[0.0; 4]; nb],
+            rb: vec![0.0; nb * nreg],
+            ro: vec![0.0; nb * nreg],
+            rdirty: vec![false; nb * nreg],
+            rlist: Vec::new(),
+        }
+    }
+
+    #[inline(always)]
+    fn touch(&mut self, slot: usize) {
+        if !self.rdirty[slot] {
+            self.rdirty[slot] = true;
+            self.rlist.push(slot);
+        }
+    }
+
+    #[inline(always)]
+    fn add(&mut self, bin: usize, ww: f64, wsv: f64, wzv: f64, r1: u32, r2: u32) {
+        let h = &mut self.h[bin];
+        h[0] += 1.0;
+        h[1] += ww;
+        h[2] += wsv;
+        h[3] += wzv;
+        if self.nreg > 0 {
+            let s1 = r1 as usize * self.nb + bin;
+            if r1 == r2 {
+                self.touch(s1);
+                self.rb[s1] += ww;
+            } else {
+                let s2 = r2 as usize * self.nb + bin;
+                self.touch(s1);
+                self.touch(s2);
+                self.ro[s1] += ww;
+                self.ro[s2] += ww;
+            }
+        }
+    }
+
+    fn flush(&mut self, out: &mut PairCounts) {
+        for (b, h) in self.h.iter_mut().enumerate() {
+            if h[0] != 0.0 {
+                out.npairs[b] += h[0] as u64;
+                out.wpairs[b] += to_fixed(h[1]);
+                out.ws[b] += to_fixed(h[2]);
+                out.wz[b] += to_fixed(h[3]);
+            }
+            *h = [0.0; 4];
+        }
+        for &s in &self.rlist {
+            out.region_both[s] += to_fixed(self.rb[s]);
+            out.region_one[s] += to_fixed(self.ro[s]);
+            self.rb[s] = 0.0;
+            self.ro[s] = 0.0;
+            self.rdirty[s] = false;
+        }
+        self.rlist.clear();
+    }
+}
+
+#[derive(Clone, Copy)]
+struct Leaf {
+    a0: usize,
+    a1: usize,
+    b0: usize,
+    b1: usize,
+    same: bool,
+}
+
+/// Add a pair already known to lie in [q_lo, q_hi): bin, mu, s and weights as in the
+/// single-fiducial kernels.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn add_pair<const K: u8, const MU: bool>(
+    a: &Pts,
+    i: usize,
+    b: &Pts,
+    j: usize,
+    q: f64,
+    dz: f64,
+    g: &Geo,
+    bn: &Binner,
+    acc: &mut VAcc,
+) {
+    let is = if bn.table_ok {
+        bn.s_bin_from_cell(bn.cell(q), q)
+    } else {
+        bn.s_bin_exact(q)
+    };
+    let im = if MU {
+        let mu = if K == PER {
+            if q > 0.0 {
+                dz.abs() / q.sqrt()
+            } else {
+                0.0
+            }
+        } else if K == FLAT {
+            mu_flat(
+                a.c[0][i], a.c[1][i], a.c[2][i], b.c[0][j], b.c[1][j], b.c[2][j],
+            )
+        } else {
+            mu_flat(
+                a.f[0][i], a.f[1][i], a.f[2][i], b.f[0][j], b.f[1][j], b.f[2][j],
+            )
+        };
+        bn.mu_bin(mu)
+    } else {
+        0
+    };
+    let s = s_of_q::<K>(q, g.radius);
+    let ww = a.w[i] * b.w[j];
+    let zz = 0.5 * (a.z[i] + b.z[j]);
+    let (r1, r2) = if acc.nreg > 0 {
+        (a.reg[i], b.reg[j])
+    } else {
+        (0, 0)
+    };
+    acc.add(is * bn.n_mu + im, ww, ww * s, ww * zz, r1, r2);
+}
+
+/// Leaf kernel for one variant: a branch-free pass computing q for L lanes (vectorisable), then
+/// the in-range lanes are binned in ascending j order.
+#[inline(always)]
+fn leaf_body<const L: usize, const K: u8, const MU: bool>(
+    a: &Pts,
+    b: &Pts,
+    lp: Leaf,
+    g: &Geo,
+    bn: &Binner,
+    acc: &mut VAcc,
+) {
+    let (qlo, qhi) = (bn.qlo(), bn.qhi());
+    let (l, hl) = (g.box_l, g.half_l);
+    for i in lp.a0..lp.a1 {
+        let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
+        let mut j = if lp.same { i + 1 } else { lp.b0 };
+        while j + L <= lp.b1 {
+            let bx: &[f64; L] = b.c[0][j..j + L].try_into().unwrap();
+            let by: &[f64; L] = b.c[1][j..j + L].try_into().unwrap();
+            let bz: &[f64; L] = b.c[2][j..j + L].try_into().unwrap();
+            let bt: &[f64; L] = b.c[3][j..j + L].try_into().unwrap();
+            let mut qs = [0.0f64; L];
+            let mut dzs = [0.0f64; L];
+            let mut any = false;
+            for k in 0..L {
+                let (q, dz) = pair_q::<K>(ax, ay, az, at, bx[k], by[k], bz[k], bt[k], l, hl);
+                qs[k] = q;
+                dzs[k] = dz;
+                any |= q >= qlo && q < qhi;
+            }
+            if any {
+                for k in 0..L {
+                    let q = qs[k];
+                    if q >= qlo && q < qhi {
+                        add_pair::<K, MU>(a, i, b, j + k, q, dzs[k], g, bn, acc);
+                    }
+                }
+            }
+            j += L;
+        }
+        while j < lp.b1 {
+            let (q, dz) = pair_q::<K>(
+                ax, ay, az, at, b.c[0][j], b.c[1][j], b.c[2][j], b.c[3][j], l, hl,
+            );
+            if q >= qlo && q < qhi {
+                add_pair::<K, MU>(a, i, b, j, q, dz, g, bn, acc);
+            }
+            j += 1;
+        }
+    }
+}
+
+type SLeafFn = fn(&Pts, &Pts, Leaf, &Geo, &Binner, &mut VAcc);
+
+#[cfg(target_arch = "x86_64")]
+#[target_feature(enable = "avx2")]
+unsafe fn leaf_avx2<const K: u8, const MU: bool>(
+    a: &Pts,
+    b: &Pts,
+    lp: Leaf,
+    g: &Geo,
+    bn: &Binner,
+    acc: &mut VAcc,
+) {
+    leaf_body::<4, K, MU>(a, b, lp, g, bn, acc)
+}
+
+fn leaf_portable<const K: u8, const MU: bool>(
+    a: &Pts,
+    b: &Pts,
+    lp: Leaf,
+    g: &Geo,
+    bn: &Binner,
+    acc: &mut VAcc,
+) {
+    leaf_body::<4, K, MU>(a, b, lp, g, bn, acc)
+}
+
+fn pick_k<const K: u8, const MU: bool>() -> SLeafFn {
+    #[cfg(target_arch = "x86_64")]
+    {
+        if std::arch::is_x86_feature_detected!("avx2") {
+            // SAFETY: chosen only when the CPU reports AVX2.
+            return |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU>(a, b, lp, g, bn, acc) };
+        }
+    }
+    leaf_portable::<K, MU>
+}
+
+fn pick(kind: u8, mu: bool) -> SLeafFn {
+    match (kind, mu) {
+        (FLAT, false) => pick_k::<FLAT, false>(),
+        (FLAT, true) => pick_k::<FLAT, true>(),
+        (PER, false) => pick_k::<PER, false>(),
+        (PER, true) => pick_k::<PER, true>(),
+        (CLO, false) => pick_k::<CLO, false>(),
+        (CLO, true) => pick_k::<CLO, true>(),
+        (_, false) => pick_k::<OPE, false>(),
+        (_, true) => pick_k::<OPE, true>(),
+    }
+}
+
+/// One variant's prepared data.
+struct Var {
+    geo: Geo,
+    bn: Binner,
+    pa: Pts,
+    pb: Option<Pts>,
+    q_lo_pad: f64,
+    q_hi_pad: f64,
+    leaf: SLeafFn,
+}
+
+#[derive(Clone, Copy)]
+struct STask {
+    a: u32,
+    b: u32,
+    same: bool,
+    /// Variants still alive (not pruned at an ancestor).
+    alive: u32,
+}
+
+/// Number of top-level node pairs (fixed: the f64 grouping depends only on data and binning).
+const TASK_TARGET: usize = 4096;
+
+struct SWalker<'a> {
+    ta: &'a STree,
+    tb: &'a STree,
+    vars: &'a [Var],
+}
+
+impl SWalker<'_> {
+    /// The subset of `alive` for which the node pair can hold a pair in range.
+    fn alive(&self, t: &STask) -> u32 {
+        let nv = self.ta.nv;
+        let mut out = 0u32;
+        let mut m = t.alive;
+        while m != 0 {
+            let k = m.trailing_zeros() as usize;
+            m &= m - 1;
+            let v = &self.vars[k];
+            let (ia, ib) = (t.a as usize * nv + k, t.b as usize * nv + k);
+            let (qmin, qmax) = box_bounds(
+                v.geo.kind,
+                &v.geo,
+                &self.ta.lo[ia],
+                &self.ta.hi[ia],
+                &self.tb.lo[ib],
+                &self.tb.hi[ib],
+            );
+            if !(qmin >= v.q_hi_pad || qmax < v.q_lo_pad) {
+                out |= 1 << k;
+            }
+        }
+        out
+    }
+
+    fn is_leaf_pair(&self, t: &STask) -> bool {
+        self.ta.nodes[t.a as usize].is_leaf() && self.tb.nodes[t.b as usize].is_leaf()
+    }
+
+    fn split(&self, t: STask, out: &mut Vec<STask>) {
+        let a = self.ta.nodes[t.a as usize];
+        let b = self.tb.nodes[t.b as usize];
+        let mk = |x: u32, y: u32, same: bool| STask {
+            a: x,
+            b: y,
+            same,
+            alive: t.alive,
+        };
+        if t.same {
+            out.push(mk(a.left, a.left, true));
+            out.push(mk(a.left, a.right, false));
+            out.push(mk(a.right, a.right, true));
+        } else if a.is_leaf() || (!b.is_leaf() && b.len() > a.len()) {
+            out.push(mk(t.a, b.left, false));
+            out.push(mk(t.a, b.right, false));
+        } else {
+            out.push(mk(a.left, t.b, false));
+            out.push(mk(a.right, t.b, false));
+        }
+    }
+
+    fn tasks(&self, root: STask) -> Vec<STask> {
+        let mut cur = vec![root];
+        loop {
+            if cur.len() >= TASK_TARGET {
+                break;
+            }
+            let mut next = Vec::with_capacity(cur.len() * 3);
+            let mut grew = false;
+            for &t in &cur {
+                let alive = self.alive(&t);
+                if alive == 0 {
+                    continue;
+                }
+                let t = STask { alive, ..t };
+                if self.is_leaf_pair(&t) {
+                    next.push(t);
+                } else {
+                    self.split(t, &mut next);
+                    grew = true;
+                }
+            }
+            cur = next;
+            if !grew {
+                break;
+            }
+        }
+        cur
+    }
+
+    fn walk(&self, t: STask, accs: &mut [VAcc], stack: &mut Vec<STask>) {
+        stack.clear();
+        stack.push(t);
+        while let Some(t) = stack.pop() {
+            let alive = self.alive(&t);
+            if alive == 0 {
+                continue;
+            }
+            let t = STask { alive, ..t };
+            if self.is_leaf_pair(&t) {
+                let a = self.ta.nodes[t.a as usize];
+                let b = self.tb.nodes[t.b as usize];
+                let lp = Leaf {
+                    a0: a.start,
+                    a1: a.end,
+                    b0: b.start,
+                    b1: b.end,
+                    same: t.same,
+                };
+                let mut m = alive;
+                while m != 0 {
+                    let k = m.trailing_zeros() as usize;
+                    m &= m - 1;
+                    let v = &self.vars[k];
+                    let pb = v.pb.as_ref().unwrap_or(&v.pa);
+                    (v.leaf)(&v.pa, pb, lp, &v.geo, &v.bn, &mut accs[k]);
+                }
+            } else {
+                let n0 = stack.len();
+                self.split(t, stack);
+                stack[n0..].reverse();
+            }
+        }
+    }
+}
+
+fn sweep_impl(
+    a: &[PointSet],
+    b: Option<&[PointSet]>,
+    metrics: &[Metric],
+    cfg: &SweepConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    check_lists(a, b, metrics)?;
+    let nv = metrics.len();
+    let mut pa_list = Vec::with_capacity(nv);
+    let mut pb_list = Vec::with_capacity(nv);
+    let mut geo_bn = Vec::with_capacity(nv);
+    for (k, m) in metrics.iter().enumerate() {
+        let ccfg = single_cfg(cfg, *m);
+        let (geo, bn) = check_config(&ccfg)?;
+        let name_a = if b.is_some() {
+            format!("variant {k}: catalogue A")
+        } else {
+            format!("variant {k}: catalogue")
+        };
+        pa_list.push(prepare(&a[k], &name_a, &ccfg, &geo)?);
+        if let Some(b) = b {
+            pb_list.push(prepare(
+                &b[k],
+                &format!("variant {k}: catalogue B"),
+                &ccfg,
+                &geo,
+            )?);
+        }
+        geo_bn.push((geo, bn));
+    }
+    let (ta, perm_a) = build_tree(&pa_list);
+    let pa_list: Vec<Pts> = pa_list.iter().map(|p| permute(p, &perm_a)).collect();
+    let tb_perm = if b.is_some() {
+        let (t, perm) = build_tree(&pb_list);
+        pb_list = pb_list.iter().map(|p| permute(p, &perm)).collect();
+        Some(t)
+    } else {
+        None
+    };
+    let tb = tb_perm.as_ref().unwrap_or(&ta);
+    let mu = cfg.binning.n_mu > 1;
+    let mut pb_iter = pb_list.into_iter();
+    let vars: Vec<Var> = pa_list
+        .into_iter()
+        .zip(geo_bn)
+        .map(|(pa, (geo, bn))| {
+            let pb = pb_iter.next();
+            // same padding rule as the single-fiducial engine
+            let scale = std::iter::once(&pa)
+                .chain(pb.as_ref())
+                .flat_map(|p| p.c.iter())
+                .flat_map(|v| v.iter())
+                .fold(geo.box_l, |m, &v| m.max(v.abs()));
+            let slack = 1e-12 * scale;
+            let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
+            let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
+            Var {
+                leaf: pick(geo.kind, mu),
+                geo,
+                bn,
+                pa,
+                pb,
+                q_lo_pad,
+                q_hi_pad,
+            }
+        })
+        .collect();
+    let w = SWalker {
+        ta: &ta,
+        tb,
+        vars: &vars,
+    };
+    let all: u32 = if nv == 32 { u32::MAX } else { (1u32 << nv) - 1 };
+    let tasks = w.tasks(STask {
+        a: 0,
+        b: 0,
+        same: b.is_none(),
+        alive: all,
+    });
+    let nb = cfg.binning.n_bins();
+    let nreg = cfg.n_regions;
+    let zeros = || -> Vec<PairCounts> {
+        (0..nv)
+            .map(|_| PairCounts::zeros(cfg.binning.clone(), nreg))
+            .collect()
+    };
+    let new_accs = || -> Vec<VAcc> { (0..nv).map(|_| VAcc::new(nb, nreg)).collect() };
+    let pool = super::build_pool(cfg.threads)?;
+    let out = pool.install(|| {
+        tasks
+            .par_iter()
+            .fold(
+                || (new_accs(), zeros(), Vec::new()),
+                |(mut accs, mut pcs, mut stack), &t| {
+                    w.walk(t, &mut accs, &mut stack);
+                    for (acc, pc) in accs.iter_mut().zip(pcs.iter_mut()) {
+                        acc.flush(pc);
+                    }
+                    (accs, pcs, stack)
+                },
+            )
+            .map(|(_, pcs, _)| pcs)
+            .reduce(zeros, |mut x, y| {
+                for (p, q) in x.iter_mut().zip(&y) {
+                    super::add_counts(p, q);
+                }
+                x
+            })
+    });
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    /// c/H0 in Mpc/h (exact by SI definition of c).
+    const C_OVER_H0: f64 = 2997.92458;
+
+    /// A sky cap around +z with chi0 in [900, 1500]; variant positions rescale the radial
+    /// distance by a smooth monotone map per variant (like a change of fiducial). Weights are
+    /// dyadic (multiples of 1/8 in [0.5, 1.5]) so weighted pair sums are exact in f64.
+    fn sets(n: usize, seed: u64, stretches: &[f64]) -> Vec<PointSet> {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let cmin = 12f64.to_radians().cos();
+        let mut base = Vec::new();
+        for _ in 0..n {
+            let ct: f64 = rng.gen_range(cmin..1.0);
+            let st = (1.0 - ct * ct).sqrt();
+            let ph: f64 = rng.gen_range(0.0..std::f64::consts::TAU);
+            let chi: f64 = rng.gen_range(900.0..1500.0);
+            let w = 0.5 + rng.gen_range(0..9) as f64 / 8.0;
+            let reg = rng.gen_range(0..4u32);
+            base.push((st * ph.cos(), st * ph.sin(), ct, chi, w, reg));
+        }
+        stretches
+            .iter()
+            .map(|&e| {
+                let mut p = PointSet::default();
+                for &(ux, uy, uz, chi, w, reg) in &base {
+                    let c = chi * (1.0 + e * chi / 3000.0);
+                    p.x.push(c * ux);
+                    p.y.push(c * uy);
+                    p.z.push(c * uz);
+                    p.w.push(w);
+                    p.redshift.push(chi / 3000.0);
+                    p.region.push(reg);
+                }
+                p
+            })
+            .collect()
+    }
+
+    fn metrics() -> Vec<Metric> {
+        vec![
+            Metric::Closed {
+                radius: C_OVER_H0 / 0.1f64.sqrt(),
+            },
+            Metric::Open {
+                radius: C_OVER_H0 / 0.05f64.sqrt(),
+            },
+            Metric::Euclidean,
+            Metric::Closed {
+                radius: C_OVER_H0 / 0.05f64.sqrt(),
+            },
+            Metric::Euclidean,
+        ]
+    }
+
+    fn close(a: &[i128], b: &[i128], what: &str) {
+        for (x, y) in a.iter().zip(b) {
+            let (x, y) = (super::super::from_fixed(*x), super::super::from_fixed(*y));
+            assert!(
+                (x - y).abs() <= 1e-12 * x.abs().max(y.abs()) + 1e-9,
+                "{what}: {x} vs {y}"
+            );
+        }
+    }
+
+    fn assert_same(sw: &[PairCounts], rf: &[PairCounts]) {
+        assert_eq!(sw.len(), rf.len());
+        for (s, r) in sw.iter().zip(rf) {
+            // bin membership and dyadic-weight sums: bit for bit
+            assert_eq!(s.npairs, r.npairs);
+            assert_eq!(s.wpairs, r.wpairs);
+            assert_eq!(s.region_both, r.region_both);
+            assert_eq!(s.region_one, r.region_one);
+            // s- and z-weighted sums: same pair terms, grouped by a different tree
+            close(&s.ws, &r.ws, "ws");
+            close(&s.wz, &r.wz, "wz");
+            assert!(s.npairs.iter().sum::<u64>() > 1000, "test must count pairs");
+        }
+    }
+
+    // Reference: separate single-fiducial counts (`count_auto` / `count_cross`), which are
+    // themselves tested against brute force in pairs::tests.
+    #[test]
+    fn sweep_auto_equals_single_counts() {
+        let st = [-0.04, 0.03, 0.0, -0.02, -0.04];
+        let p = sets(1500, 7, &st);
+        for n_mu in [1, 3] {
+            let cfg = SweepConfig {
+                binning: Binning::new(vec![5.0, 20.0, 40.0, 70.0, 110.0], n_mu).unwrap(),
+                n_regions: 4,
+                threads: 2,
+            };
+            let sw = sweep_auto(&p, &metrics(), &cfg).unwrap();
+            let rf = sweep_auto_reference(&p, &metrics(), &cfg).unwrap();
+            assert_same(&sw, &rf);
+        }
+    }
+
+    #[test]
+    fn sweep_cross_equals_single_counts() {
+        let st = [-0.04, 0.03, 0.0, -0.02, -0.04];
+        let a = sets(900, 11, &st);
+        let b = sets(1300, 12, &st);
+        let cfg = SweepConfig {
+            binning: Binning::new(vec![0.0, 30.0, 60.0, 90.0], 1).unwrap(),
+            n_regions: 4,
+            threads: 3,
+        };
+        let sw = sweep_cross(&a, &b, &metrics(), &cfg).unwrap();
+        let rf = sweep_cross_reference(&a, &b, &metrics(), &cfg).unwrap();
+        assert_same(&sw, &rf);
+    }
+
+    #[test]
+    fn thread_count_does_not_change_bits() {
+        let st = [0.0, 0.03, -0.03];
+        let p = sets(1200, 3, &st);
+        let m = vec![
+            Metric::Euclidean,
+            Metric::Open { radius: 9000.0 },
+            Metric::Closed { radius: 9000.0 },
+        ];
+        let mk = |threads| SweepConfig {
+            binning: Binning::new(vec![10.0, 50.0, 100.0], 2).unwrap(),
+            n_regions: 4,
+            threads,
+        };
+        let x = sweep_auto(&p, &m, &mk(1)).unwrap();
+        let y = sweep_auto(&p, &m, &mk(4)).unwrap();
+        assert_eq!(x, y);
+    }
+
+    #[test]
+    fn bad_input_is_an_input_error() {
+        let p = sets(50, 1, &[0.0, 0.01]);
+        let cfg = SweepConfig {
+            binning: Binning::new(vec![0.0, 10.0], 1).unwrap(),
+            n_regions: 0,
+            threads: 1,
+        };
+        let code = |r: crate::Result<Vec<PairCounts>>| r.unwrap_err().exit_code();
+        assert_eq!(code(sweep_auto(&p, &[Metric::Euclidean], &cfg)), 2);
+        assert_eq!(code(sweep_auto(&p[..0], &[], &cfg)), 2);
+        let mut q = p.clone();
+        q[1].x.pop();
+        assert_eq!(
+            code(sweep_auto(
+                &q,
+                &[Metric::Euclidean, Metric::Euclidean],
+                &cfg
+            )),
+            2
+        );
+        assert_eq!(
+            code(sweep_auto(
+                &p,
+                &[Metric::Euclidean, Metric::Closed { radius: 1.0 }],
+                &cfg
+            )),
+            2
+        );
+    }
+}
