@@ -12,6 +12,7 @@ pub mod fit;
 pub mod geometry;
 pub mod inference;
 pub mod mock;
+pub mod pipeline;
 pub mod pairs;
 pub mod report;
 

@@ -5,6 +5,7 @@ pub mod distances;
 pub mod fit;
 pub mod inspect;
 pub mod mock;
+pub mod run;
 pub mod xi;
 
 /// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.
