@@ -12,8 +12,8 @@ pub mod fit;
 pub mod geometry;
 pub mod inference;
 pub mod mock;
-pub mod pipeline;
 pub mod pairs;
+pub mod pipeline;
 pub mod report;
 
 pub use error::{Error, Result};

@@ -175,7 +175,7 @@ fn dry_run(plan: &Plan, threads: usize) -> Result<()> {
         n_cat, nd, nr
     );
     println!(
-        "pairs to consider per catalogue: DD {dd:.3e}, DR {dr:.3e}, RR {rr:.3e} ({} RR subsets); total {total:.3e}",
+        "pairs to consider per catalogue: DD {dd:.0}, DR {dr:.0}, RR {rr:.0} ({} RR subsets); total {total:.0}",
         plan.estimator.rr_splits
     );
     println!(

@@ -27,8 +27,9 @@ fn hex(b: &[u8]) -> String {
 
 static WRITTEN: AtomicUsize = AtomicUsize::new(0);
 
-/// Test hook: with RINGSCALE_TEST_ABORT_AFTER=N the process aborts (like `kill -9`, no cleanup)
-/// right after its N-th checkpoint write, which lets tests interrupt a run at exact points.
+/// Test hook: with RINGSCALE_TEST_ABORT_AFTER=N the process stops dead right after its N-th
+/// checkpoint write (exit status 137, as after `kill -9`; no destructors, no cleanup), which
+/// lets tests interrupt a run at exact points.
 fn after_write() {
     let n = WRITTEN.fetch_add(1, Ordering::SeqCst) + 1;
     if let Some(limit) = std::env::var("RINGSCALE_TEST_ABORT_AFTER")
@@ -36,7 +37,7 @@ fn after_write() {
         .and_then(|v| v.trim().parse::<usize>().ok())
     {
         if n >= limit {
-            std::process::abort();
+            std::process::exit(137);
         }
     }
 }

@@ -232,7 +232,12 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
 
     // Load: checksums and keys.
     let t = Instant::now();
-    log.event("load", "start", "checksumming inputs", serde_json::json!({}));
+    log.event(
+        "load",
+        "start",
+        "checksumming inputs",
+        serde_json::json!({}),
+    );
     let randoms = plan
         .inputs
         .randoms
@@ -338,7 +343,12 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
             let copt = plan.count_options(&tgt.path, opt.threads)?;
             let prep = count::prepare(&copt)?;
             for m in &prep.messages {
-                log.event("count", "warning", m, serde_json::json!({"catalogue": tgt.name}));
+                log.event(
+                    "count",
+                    "warning",
+                    m,
+                    serde_json::json!({"catalogue": tgt.name}),
+                );
             }
             if header.is_none() {
                 let h = HeaderCheckpoint {
@@ -524,11 +534,17 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         );
         st.done("fit", "skipped-no-covariance", t);
     } else {
-        let key = hash_json(&("fit", crate::VERSION, &data_xi_files, &plan.fit, power_sha(plan)?));
+        let key = hash_json(&(
+            "fit",
+            crate::VERSION,
+            &data_xi_files,
+            &plan.fit,
+            power_sha(plan)?,
+        ));
         let marker_path = ckdir.join(format!("stage-fit-{}.json", short(&key)));
         let dir = out.join("fit");
-        let valid = checkpoint::read::<StageDone>(&marker_path)?
-            .is_some_and(|m| m.still_valid(&key, out));
+        let valid =
+            checkpoint::read::<StageDone>(&marker_path)?.is_some_and(|m| m.still_valid(&key, out));
         if !valid {
             let o = crate::app::fit::run(&fit_options(plan))?;
             fit_result = Some(serde_json::to_value(&o.result).unwrap_or_default());
@@ -558,9 +574,23 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         "n_mocks": plan.inputs.mocks.len(),
         "covariance": covariance,
         "xi": xi_summary,
-        "fit": fit_result,
     });
-    crate::report::json::write_json(&out.join("summary.json"), &summary)?;
+    // fit.json goes in verbatim: re-encoding parsed floats could change their last digit.
+    let mut text = serde_json::to_string_pretty(&summary)
+        .map_err(|e| Error::other(format!("cannot encode summary: {e}")))?;
+    let fit_text = if fit_result.is_some() {
+        std::fs::read_to_string(out.join("fit/fit.json"))
+            .map_err(|e| Error::io(&out.join("fit/fit.json"), "cannot read", e))?
+    } else {
+        "null".into()
+    };
+    text.truncate(text.trim_end().len() - 1);
+    text = format!(
+        "{},\n  \"fit\": {}\n}}\n",
+        text.trim_end(),
+        fit_text.trim_end()
+    );
+    checkpoint::write_text(&out.join("summary.json"), &text)?;
     st.done("report", "ran", t);
     if let Some(f) = &fit_result {
         log.event(
