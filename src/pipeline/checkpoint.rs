@@ -78,10 +78,11 @@ pub struct StageDone {
 }
 
 impl StageDone {
-    /// Record the files of a stage (all regular files directly in `dirs`, sorted).
-    pub fn record(stage: &str, key: &str, root: &Path, dirs: &[PathBuf]) -> Result<Self> {
+    /// Record the files of a stage (all regular files directly in `dir`, sorted).
+    pub fn record(stage: &str, key: &str, root: &Path, dir: &Path) -> Result<Self> {
         let mut files = Vec::new();
-        for d in dirs {
+        {
+            let d = dir;
             let mut names: Vec<PathBuf> = std::fs::read_dir(d)
                 .map_err(|e| Error::io(d, "cannot list", e))?
                 .filter_map(|e| e.ok().map(|e| e.path()))

@@ -459,7 +459,7 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         }
         let states: Vec<CountState> = assemble(header, counts)?;
         count::write_folder(&dir, &states)?;
-        let m = StageDone::record("counts", key, out, &[dir])?;
+        let m = StageDone::record("counts", key, out, &dir)?;
         checkpoint::write(&marker_path, &m)?;
         count_markers.push(m);
         ran = true;
@@ -504,7 +504,7 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
                         serde_json::json!({"catalogue": tgt.name, "empty_bins": s.empty_bins}),
                     );
                 }
-                let m = StageDone::record("xi", &key, out, &[dir.clone()])?;
+                let m = StageDone::record("xi", &key, out, &dir)?;
                 checkpoint::write(&marker_path, &m)?;
                 ran = true;
                 m
@@ -548,7 +548,7 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         if !valid {
             let o = crate::app::fit::run(&fit_options(plan))?;
             fit_result = Some(serde_json::to_value(&o.result).unwrap_or_default());
-            let m = StageDone::record("fit", &key, out, &[dir.clone()])?;
+            let m = StageDone::record("fit", &key, out, &dir)?;
             checkpoint::write(&marker_path, &m)?;
             st.done("fit", "ran", t);
         } else {

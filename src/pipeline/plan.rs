@@ -325,11 +325,11 @@ impl Plan {
             return bad("[inputs] mocks need [inputs] randoms".into());
         }
         let [lo, hi] = self.fit.range;
-        if !(lo < hi) {
+        if lo.is_nan() || hi.is_nan() || lo >= hi {
             return bad(format!("[fit] range [{lo}, {hi}]: need LO < HI"));
         }
         let [a, b, st] = self.fit.alpha_grid;
-        if !(a < b && st > 0.0) {
+        if a.is_nan() || b.is_nan() || st.is_nan() || a >= b || st <= 0.0 {
             return bad(format!(
                 "[fit] alpha_grid [{a}, {b}, {st}]: need LO < HI and STEP > 0"
             ));
