@@ -248,11 +248,14 @@ pub fn parse_plan(text: &str, source: &str) -> Result<Plan> {
 pub fn load_plan(path: &Path) -> Result<Plan> {
     let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, "cannot read plan", e))?;
     let mut plan = parse_plan(&text, &path.display().to_string())?;
-    let base = path
+    // The plan's folder, canonical, so every process of a job array resolves the same paths
+    // whatever its working directory, and their checkpoint keys agree.
+    let dir = path
         .parent()
         .filter(|p| !p.as_os_str().is_empty())
-        .unwrap_or(Path::new("."))
-        .to_path_buf();
+        .unwrap_or(Path::new("."));
+    let base = std::fs::canonicalize(dir)
+        .map_err(|e| Error::io(dir, "cannot resolve the plan's folder", e))?;
     plan.resolve_paths(&base);
     plan.validate()?;
     Ok(plan)
