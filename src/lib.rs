@@ -13,6 +13,7 @@ pub mod geometry;
 pub mod inference;
 pub mod mock;
 pub mod pairs;
+pub mod pipeline;
 pub mod report;
 
 pub use error::{Error, Result};

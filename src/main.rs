@@ -107,6 +107,8 @@ enum Cmd {
     },
     /// Fit the acoustic peak: alpha, D_V/r_d, chi2 curve and plots.
     Fit(Box<FitArgs>),
+    /// Run a whole TOML plan: count, estimate, fit, report; resumable and shardable.
+    Run(Box<app::run::RunArgs>),
     /// Lognormal mock catalogues.
     #[command(subcommand)]
     Mock(MockCmd),
@@ -637,6 +639,7 @@ fn run(cli: Cli) -> Result<()> {
                 println!("wrote {}", f.display());
             }
         }
+        Cmd::Run(a) => app::run::main(&a)?,
         Cmd::Mock(m) => match m {
             MockCmd::Box {
                 cosmology,

@@ -234,7 +234,147 @@ fn slab_regions(xs: &[&[f64]], k: usize, box_size: Option<f64>) -> Vec<Vec<u32>>
         .collect()
 }
 
+/// One separately countable piece of a count: checkpointed on its own by `ringscale run`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub enum Piece {
+    Dd,
+    Dr,
+    /// RR of the s-th split-random subset.
+    Rr(usize),
+}
+
+impl Piece {
+    /// Short stable name used in checkpoint keys and logs.
+    pub fn name(&self) -> String {
+        match self {
+            Piece::Dd => "dd".into(),
+            Piece::Dr => "dr".into(),
+            Piece::Rr(s) => format!("rr{s}"),
+        }
+    }
+}
+
+/// What the count files need besides the pair sums: provenance and the normalisations. Small
+/// and serialisable, so a resumed run can assemble the states without re-reading catalogues.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct CountHeader {
+    pub meta: CountMeta,
+    pub norm_dd: PairNorm,
+    pub norm_dr: Option<PairNorm>,
+    pub norm_rr: Option<PairNorm>,
+    pub pieces: Vec<Piece>,
+}
+
+/// Catalogues loaded and placed, ready to count piece by piece.
+pub struct Prepared {
+    pub header: CountHeader,
+    pub cfg: CountConfig,
+    pub data: PointSet,
+    pub randoms: Option<PointSet>,
+    pub memory_estimate: u64,
+    pub messages: Vec<String>,
+}
+
+impl Prepared {
+    /// Count one piece, restricted to part `shard` = (k, N) of its tasks.
+    pub fn count_piece(&self, piece: Piece, shard: (usize, usize)) -> Result<PairCounts> {
+        let cfg = CountConfig {
+            shard,
+            ..self.cfg.clone()
+        };
+        let pr = || {
+            self.randoms
+                .as_ref()
+                .ok_or_else(|| Error::input("this count has no randoms"))
+        };
+        match piece {
+            Piece::Dd => pairs::count_auto(&self.data, &cfg),
+            Piece::Dr => pairs::count_cross(&self.data, pr()?, &cfg),
+            Piece::Rr(s) => {
+                let m = self.header.meta.rr_splits;
+                if m == 1 {
+                    pairs::count_auto(pr()?, &cfg)
+                } else {
+                    pairs::count_auto(&subset(pr()?, s, m), &cfg)
+                }
+            }
+        }
+    }
+}
+
+/// Build the states from a header and each piece's (complete) counts, in `header.pieces` order.
+pub fn assemble(header: &CountHeader, counts: Vec<PairCounts>) -> Result<Vec<CountState>> {
+    if counts.len() != header.pieces.len() {
+        return Err(Error::other("assemble: one count per piece expected"));
+    }
+    let meta = &header.meta;
+    let mut states = Vec::new();
+    let mut rr: Option<PairCounts> = None;
+    for (piece, c) in header.pieces.iter().zip(counts) {
+        match piece {
+            Piece::Dd => states.push(CountState {
+                pairing: "dd".into(),
+                meta: meta.clone(),
+                norm: header.norm_dd.clone(),
+                counts: c,
+            }),
+            Piece::Dr => states.push(CountState {
+                pairing: "dr".into(),
+                meta: meta.clone(),
+                norm: header
+                    .norm_dr
+                    .clone()
+                    .ok_or_else(|| Error::other("assemble: no DR normalisation"))?,
+                counts: c,
+            }),
+            Piece::Rr(_) => {
+                let acc = rr
+                    .get_or_insert_with(|| PairCounts::zeros(meta.binning.clone(), meta.n_regions));
+                acc.merge(&c)?;
+            }
+        }
+    }
+    if let Some(rr) = rr {
+        states.push(CountState {
+            pairing: "rr".into(),
+            meta: meta.clone(),
+            norm: header
+                .norm_rr
+                .clone()
+                .ok_or_else(|| Error::other("assemble: no RR normalisation"))?,
+            counts: rr,
+        });
+    }
+    Ok(states)
+}
+
 pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
+    let p = prepare(opt)?;
+    eprintln!(
+        "memory estimate: {:.1} MiB ({} galaxies, {} randoms, {} bins, {} regions)",
+        p.memory_estimate as f64 / 1048576.0,
+        p.data.len(),
+        p.randoms.as_ref().map_or(0, |r| r.len()),
+        opt.binning.n_bins(),
+        p.cfg.n_regions
+    );
+    ensure_writable(&opt.out)?;
+    let counts = p
+        .header
+        .pieces
+        .iter()
+        .map(|&piece| p.count_piece(piece, opt.shard))
+        .collect::<Result<Vec<_>>>()?;
+    Ok(CountOutcome {
+        states: assemble(&p.header, counts)?,
+        memory_estimate: p.memory_estimate,
+        messages: p.messages,
+    })
+}
+
+/// Read the catalogues, place them, assign regions and check the memory estimate: everything a
+/// count does before counting.
+pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     let mut messages = Vec::new();
     if opt.rr_splits == 0 {
         return Err(Error::input("--rr-splits must be >= 1"));
@@ -425,16 +565,6 @@ pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
         }
     }
 
-    eprintln!(
-        "memory estimate: {:.1} MiB ({} galaxies, {} randoms, {} bins, {} regions)",
-        estimate as f64 / 1048576.0,
-        data.len(),
-        n_r,
-        opt.binning.n_bins(),
-        n_regions
-    );
-    ensure_writable(&opt.out)?;
-
     let meta = CountMeta {
         tool: "ringscale".into(),
         version: crate::VERSION.into(),
@@ -458,41 +588,38 @@ pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
         },
     };
 
-    let mut states = Vec::new();
-    let dd = pairs::count_auto(&pd, &cfg)?;
-    states.push(CountState {
-        pairing: "dd".into(),
-        meta: meta.clone(),
-        norm: auto_norm(&wd)?,
-        counts: dd,
-    });
+    let mut pieces = vec![Piece::Dd];
+    let (mut norm_dr, mut norm_rr) = (None, None);
     if let (Some(pr), Some(wr)) = (&pr, &wr) {
-        let dr = pairs::count_cross(&pd, pr, &cfg)?;
-        states.push(CountState {
-            pairing: "dr".into(),
-            meta: meta.clone(),
-            norm: cross_norm(&wd, wr)?,
-            counts: dr,
-        });
+        pieces.push(Piece::Dr);
+        norm_dr = Some(cross_norm(&wd, wr)?);
         if !opt.skip_rr {
             let m = opt.rr_splits;
-            let mut rr = PairCounts::zeros(opt.binning.clone(), n_regions);
             let mut sums = Vec::with_capacity(m);
             for s in 0..m {
-                let sub = if m == 1 { pr.clone() } else { subset(pr, s, m) };
-                sums.push(WeightSums::from_weights(&sub.w, &sub.region, n_regions)?);
-                rr.merge(&pairs::count_auto(&sub, &cfg)?)?;
+                let w = if m == 1 {
+                    WeightSums::from_weights(&pr.w, &pr.region, n_regions)?
+                } else {
+                    let sub = subset(pr, s, m);
+                    WeightSums::from_weights(&sub.w, &sub.region, n_regions)?
+                };
+                sums.push(w);
+                pieces.push(Piece::Rr(s));
             }
-            states.push(CountState {
-                pairing: "rr".into(),
-                meta: meta.clone(),
-                norm: split_auto_norm(&sums)?,
-                counts: rr,
-            });
+            norm_rr = Some(split_auto_norm(&sums)?);
         }
     }
-    Ok(CountOutcome {
-        states,
+    Ok(Prepared {
+        header: CountHeader {
+            meta,
+            norm_dd: auto_norm(&wd)?,
+            norm_dr,
+            norm_rr,
+            pieces,
+        },
+        cfg,
+        data: pd,
+        randoms: pr,
         memory_estimate: estimate,
         messages,
     })

@@ -7,6 +7,7 @@ pub mod distances;
 pub mod fit;
 pub mod inspect;
 pub mod mock;
+pub mod run;
 pub mod sweep;
 pub mod xi;
 
