@@ -18,10 +18,10 @@ use crate::fit::{IsotropicOptions, TemplateOptions};
 use crate::geometry::{positions, Curvature};
 use crate::pairs::{self, Binning, Metric, PairCounts, PointSet, SweepConfig};
 use crate::report::ecsv::{self, Column, ColumnData, Table};
-use crate::report::json;
+use crate::report::{json, plots};
 use crate::{Error, Result};
 use serde::Serialize;
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 /// The fiducials to sweep over.
 #[derive(Debug, Clone)]
@@ -371,7 +371,58 @@ pub fn run(opt: &SweepOptions) -> Result<SweepSummary> {
     );
     json::write_json(&opt.out.join("sweep.json"), &summary)?;
     ecsv::write_ecsv(&opt.out.join("sweep.ecsv"), &table(&summary)?)?;
+    if opt.plots {
+        sweep_plots(&opt.out, &vars, &summary)?;
+    }
     Ok(summary)
+}
+
+/// s^2 xi per fiducial on one panel (the peak moving), and alpha and D_V/r_d against
+/// Omega_k of the fiducial for the exact (and naive) mappings.
+fn sweep_plots(out: &Path, vars: &[Variant], summary: &SweepSummary) -> Result<()> {
+    let mut curves = Vec::new();
+    for v in vars {
+        let t = ecsv::read_ecsv(&out.join(&v.label).join("xi").join("xi.ecsv"))?;
+        let s = t.f64_column("s_mean")?.to_vec();
+        let xi = t.f64_column("xi")?.to_vec();
+        curves.push((v.label.clone(), s, xi));
+    }
+    plots::multi_xi_plot(&out.join("xi_per_fiducial"), &curves, "ξ(s) under each fiducial cosmology")?;
+    for mapping in ["exact", "naive"] {
+        let rows: Vec<&SweepRow> = summary.rows.iter().filter(|r| r.mapping == mapping).collect();
+        if rows.len() < 2 {
+            continue;
+        }
+        let ok: Vec<f64> = rows.iter().map(|r| r.omega_k_fid).collect();
+        let dv: Vec<f64> = rows.iter().map(|r| r.dv_over_rd).collect();
+        let dv_err: Vec<f64> = rows.iter().map(|r| r.dv_over_rd_err).collect();
+        let al: Vec<f64> = rows.iter().map(|r| r.alpha).collect();
+        let al_err: Vec<f64> = rows.iter().map(|r| r.alpha_err).collect();
+        let reference = summary.rows.iter().find(|r| r.label == summary.reference).map(|r| r.dv_over_rd);
+        plots::xy_errorbar_plot(
+            &out.join(format!("dv_over_rd_vs_omega_k_{mapping}")),
+            &ok,
+            &dv,
+            &dv_err,
+            &dv_err,
+            "Ω_k of the fiducial",
+            "D_V/r_d",
+            &format!("D_V/r_d under each fiducial ({mapping} mapping)"),
+            reference,
+        )?;
+        plots::xy_errorbar_plot(
+            &out.join(format!("alpha_vs_omega_k_{mapping}")),
+            &ok,
+            &al,
+            &al_err,
+            &al_err,
+            "Ω_k of the fiducial",
+            "α",
+            &format!("α under each fiducial ({mapping} mapping)"),
+            None,
+        )?;
+    }
+    Ok(())
 }
 
 fn row(v: &Variant, r: &FitResult) -> SweepRow {
