@@ -136,7 +136,8 @@ pub fn parse_edges(spec: &str, log: bool) -> Result<Vec<f64>> {
             } else if log {
                 lo * (hi / lo).powf(t)
             } else {
-                lo + (hi - lo) * t
+                // (lo (n - i) + hi i) / n is exact for integer-valued edges like 0:200:40.
+                (lo * (n - i) as f64 + hi * i as f64) / n as f64
             }
         })
         .collect())

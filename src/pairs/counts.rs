@@ -113,9 +113,16 @@ impl PairCounts {
     /// Add another partial result (thread or shard). Exact and order-independent.
     pub fn merge(&mut self, other: &PairCounts) -> crate::Result<()> {
         if self.binning != other.binning || self.n_regions != other.n_regions {
-            return Err(crate::Error::input(
-                "cannot merge pair counts with different binning or region count",
-            ));
+            return Err(crate::Error::input(format!(
+                "cannot merge pair counts with different binning or region count \
+                 ({} s edges x {} mu bins, {} regions vs {} s edges x {} mu bins, {} regions)",
+                self.binning.s_edges.len(),
+                self.binning.n_mu,
+                self.n_regions,
+                other.binning.s_edges.len(),
+                other.binning.n_mu,
+                other.n_regions
+            )));
         }
         for (a, b) in self.npairs.iter_mut().zip(&other.npairs) {
             *a += b;
