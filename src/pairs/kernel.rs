@@ -278,6 +278,9 @@ pub(crate) struct Acc {
     ro: Vec<f64>,
     rdirty: Vec<bool>,
     rlist: Vec<usize>,
+    /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
+    /// w1w2 = 1 exactly, so its per-bin sum equals the (exact) count and is filled in at flush.
+    unit_w: bool,
 }
 
 impl Acc {
@@ -290,6 +293,7 @@ impl Acc {
             ro: vec![0.0; nb * nreg],
             rdirty: vec![false; nb * nreg],
             rlist: Vec::new(),
+            unit_w: false,
         }
     }
 
@@ -343,6 +347,9 @@ impl Acc {
                 }
                 *h = [0.0; 4];
             }
+            if self.unit_w {
+                t[1] = t[0];
+            }
             if t[0] != 0.0 {
                 out.npairs[b] += t[0] as u64;
                 out.wpairs[b] += to_fixed(t[1]);
@@ -361,6 +368,7 @@ impl Acc {
             self.rdirty[s] = false;
         }
         self.rlist.clear();
+        self.unit_w = false;
     }
 }
 
@@ -463,7 +471,7 @@ pub(crate) fn leaf_ref<const K: u8, const MU: bool>(
 /// branch-free (table + exact corrections, invalid lanes sent to the sentinel `nb`), and counted
 /// pairs are added in ascending j order, so the result is bitwise that of `leaf_ref`.
 #[inline(always)]
-fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
+fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -476,6 +484,9 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
     }
     let (qlo, qhi, n_mu, nb) = (bn.qlo(), bn.qhi(), bn.n_mu, bn.nb);
     let (l, hl) = (g.box_l, g.half_l);
+    if UW {
+        acc.unit_w = true;
+    }
     for i in lp.a0..lp.a1 {
         let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
         let (aw, az_) = (a.w[i], a.z[i]);
@@ -524,9 +535,16 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                 if K == FLAT || K == PER {
                     ss[k] = s_of_q::<K>(q, 0.0);
                 }
-                let ww = aw * bw[k];
+                // unit weights: ww = 1 and ww * x = x exactly; zero redshifts: the z term is 0
+                let ww = if UW { 1.0 } else { aw * bw[k] };
                 wws[k] = ww;
-                wzs[k] = ww * (0.5 * (az_ + bzz[k]));
+                if !ZZ {
+                    wzs[k] = if UW {
+                        0.5 * (az_ + bzz[k])
+                    } else {
+                        ww * (0.5 * (az_ + bzz[k]))
+                    };
+                }
             }
             // pass 2: bin lookup (table + one exact compare each way) and scatter in j order;
             // rejected lanes go to the trash bin `nb` without a branch (flat metrics)
@@ -544,7 +562,15 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                     } else {
                         0.0
                     };
-                    acc.add(j + k, bin, wws[k], wws[k] * s, wzs[k]);
+                    let h = &mut acc.h[((j + k) % SUB) * (nb + 1) + bin];
+                    h[0] += 1.0;
+                    if !UW {
+                        h[1] += wws[k];
+                    }
+                    h[2] += if UW { s } else { wws[k] * s };
+                    if !ZZ {
+                        h[3] += wzs[k];
+                    }
                     if acc.nreg > 0 && ok[k] {
                         acc.add_regions(bin, wws[k], a.reg[i], b.reg[j + k]);
                     }
@@ -561,7 +587,7 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f")]
-unsafe fn leaf_avx512<const K: u8, const MU: bool>(
+unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -569,12 +595,12 @@ unsafe fn leaf_avx512<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<8, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-unsafe fn leaf_avx2<const K: u8, const MU: bool>(
+unsafe fn leaf_avx2<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -582,10 +608,10 @@ unsafe fn leaf_avx2<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<4, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
-fn leaf_portable<const K: u8, const MU: bool>(
+fn leaf_portable<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -593,7 +619,7 @@ fn leaf_portable<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<4, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
 /// Instruction-set level picked once per count.
@@ -624,37 +650,71 @@ impl Simd {
 /// A monomorphised leaf kernel.
 pub(crate) type LeafFn = fn(&Pts, &Pts, LeafPair, &Geo, &Binner, &mut Acc);
 
-fn pick_fast<const K: u8, const MU: bool>(simd: Simd) -> LeafFn {
+fn pick_fast<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(simd: Simd) -> LeafFn {
     match simd {
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx512f")` returned true.
         Simd::Avx512 => {
-            |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU>(a, b, lp, g, bn, acc) }
+            |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU, UW, ZZ>(a, b, lp, g, bn, acc) }
         }
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx2")` returned true.
-        Simd::Avx2 => |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU>(a, b, lp, g, bn, acc) },
-        Simd::Portable => leaf_portable::<K, MU>,
+        Simd::Avx2 => {
+            |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU, UW, ZZ>(a, b, lp, g, bn, acc) }
+        }
+        Simd::Portable => leaf_portable::<K, MU, UW, ZZ>,
     }
 }
 
-fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd) -> LeafFn {
+fn pick_w<const K: u8, const MU: bool>(simd: Simd, d: DataFlags) -> LeafFn {
+    match (d.unit_w, d.zero_z) {
+        (false, false) => pick_fast::<K, MU, false, false>(simd),
+        (false, true) => pick_fast::<K, MU, false, true>(simd),
+        (true, false) => pick_fast::<K, MU, true, false>(simd),
+        (true, true) => pick_fast::<K, MU, true, true>(simd),
+    }
+}
+
+fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd, d: DataFlags) -> LeafFn {
     match (kind, mu) {
         (KernelKind::Reference, false) => leaf_ref::<K, false>,
         (KernelKind::Reference, true) => leaf_ref::<K, true>,
-        (KernelKind::Fast, false) => pick_fast::<K, false>(simd),
-        (KernelKind::Fast, true) => pick_fast::<K, true>(simd),
+        (KernelKind::Fast, false) => pick_w::<K, false>(simd, d),
+        (KernelKind::Fast, true) => pick_w::<K, true>(simd, d),
         #[cfg(test)]
         (KernelKind::Tally, _) => leaf_tally,
     }
 }
 
-/// Choose the leaf kernel for a metric kind, mu binning and instruction set.
+/// Properties of the data that let the fast kernel drop work without changing any bit.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub(crate) struct DataFlags {
+    /// Every weight in both catalogues is exactly 1.
+    pub unit_w: bool,
+    /// Every redshift in both catalogues is exactly 0 (boxes).
+    pub zero_z: bool,
+}
+
+impl DataFlags {
+    pub fn of(a: &Pts, b: &Pts) -> Self {
+        DataFlags {
+            unit_w: a.w.iter().chain(&b.w).all(|&w| w == 1.0),
+            zero_z: a.z.iter().chain(&b.z).all(|&z| z == 0.0),
+        }
+    }
+}
+
+/// Choose the leaf kernel for a metric kind, mu binning and instruction set (general data).
 pub(crate) fn pick(kind: KernelKind, metric: u8, mu: bool, simd: Simd) -> LeafFn {
+    pick_for(kind, metric, mu, simd, DataFlags::default())
+}
+
+/// As `pick`, specialised for the data flags (see `DataFlags::of`).
+pub(crate) fn pick_for(kind: KernelKind, metric: u8, mu: bool, simd: Simd, d: DataFlags) -> LeafFn {
     match metric {
-        FLAT => pick_k::<FLAT>(kind, mu, simd),
-        PER => pick_k::<PER>(kind, mu, simd),
-        CLO => pick_k::<CLO>(kind, mu, simd),
-        _ => pick_k::<OPE>(kind, mu, simd),
+        FLAT => pick_k::<FLAT>(kind, mu, simd, d),
+        PER => pick_k::<PER>(kind, mu, simd, d),
+        CLO => pick_k::<CLO>(kind, mu, simd, d),
+        _ => pick_k::<OPE>(kind, mu, simd, d),
     }
 }

@@ -23,7 +23,9 @@ mod tests;
 pub use counts::{from_fixed, to_fixed, Binning, PairCounts, FRAC_BITS};
 pub use regions::kmeans_sky_regions;
 
-use kernel::{Acc, Binner, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER};
+use kernel::{
+    Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER,
+};
 use rayon::prelude::*;
 use tree::{node_bounds, Tree};
 
@@ -588,7 +590,13 @@ pub(crate) fn count_impl(
         pb,
         geo,
         bn: &bn,
-        leaf: kernel::pick(kind, geo.kind, cfg.binning.n_mu > 1, Simd::detect()),
+        leaf: kernel::pick_for(
+            kind,
+            geo.kind,
+            cfg.binning.n_mu > 1,
+            Simd::detect(),
+            DataFlags::of(&pa, pb),
+        ),
         q_hi_pad,
         q_lo_pad,
     };
