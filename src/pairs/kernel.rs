@@ -718,3 +718,62 @@ pub(crate) fn pick_for(kind: KernelKind, metric: u8, mu: bool, simd: Simd, d: Da
         _ => pick_k::<OPE>(kind, mu, simd, d),
     }
 }
+
+#[cfg(test)]
+mod flag_tests {
+    //! The unit-weight / zero-redshift specialisations must give bitwise the reference kernel's
+    //! result (the general tests use random weights and so never take these paths).
+    use super::super::{count_impl, Binning, CountConfig, Metric, PointSet};
+    use super::KernelKind;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    fn points(n: usize, seed: u64, unit_w: bool, zero_z: bool) -> PointSet {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut p = PointSet::default();
+        for _ in 0..n {
+            p.x.push(rng.gen_range(0.0..300.0));
+            p.y.push(rng.gen_range(0.0..300.0));
+            p.z.push(rng.gen_range(0.0..300.0));
+            p.w.push(if unit_w { 1.0 } else { rng.gen_range(0.5..1.5) });
+            p.redshift
+                .push(if zero_z { 0.0 } else { rng.gen_range(0.4..0.7) });
+            p.region.push(rng.gen_range(0..3));
+        }
+        p
+    }
+
+    #[test]
+    fn specialised_kernels_are_bitwise_reference() {
+        let edges: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
+        for metric in [Metric::Euclidean, Metric::Periodic { box_size: 300.0 }] {
+            for (uw, zz) in [(true, true), (true, false), (false, true)] {
+                for (n_mu, n_regions) in [(1, 0), (3, 3)] {
+                    let c = CountConfig {
+                        binning: Binning::new(edges.clone(), n_mu).unwrap(),
+                        metric,
+                        n_regions,
+                        threads: 2,
+                        shard: (0, 1),
+                    };
+                    let a = points(1500, 1, uw, zz);
+                    let b = points(700, 2, uw, zz);
+                    let what = format!("{metric:?} uw={uw} zz={zz} n_mu={n_mu}");
+                    let r = count_impl(&a, None, &c, KernelKind::Reference).unwrap();
+                    let f = count_impl(&a, None, &c, KernelKind::Fast).unwrap();
+                    assert!(r.npairs.iter().sum::<u64>() > 10_000, "{what}");
+                    assert_eq!(r, f, "auto {what}");
+                    if uw {
+                        // w1 w2 = 1: the weighted sums equal the raw counts exactly
+                        for (k, &np) in f.npairs.iter().enumerate() {
+                            assert_eq!(super::super::from_fixed(f.wpairs[k]), np as f64);
+                        }
+                    }
+                    let r = count_impl(&a, Some(&b), &c, KernelKind::Reference).unwrap();
+                    let f = count_impl(&a, Some(&b), &c, KernelKind::Fast).unwrap();
+                    assert_eq!(r, f, "cross {what}");
+                }
+            }
+        }
+    }
+}
