@@ -546,21 +546,25 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
                     };
                 }
             }
-            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order;
-            // rejected lanes go to the trash bin `nb` without a branch (flat metrics)
-            if ok.iter().any(|&v| v) {
-                for k in 0..L {
-                    let found = bn
+            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order.
+            // Only accepted lanes are visited (all of them straight through when every lane is
+            // accepted, else the set bits of the mask in ascending order), so the terms reach
+            // each sub-histogram in the same order as in `leaf_ref`.
+            let mut mask = 0u32;
+            for (k, &o) in ok.iter().enumerate() {
+                mask |= (o as u32) << k;
+            }
+            macro_rules! lane {
+                ($k:expr) => {{
+                    let k = $k;
+                    let bin = bn
                         .s_bin_from_cell(cells[k], qs[k])
                         .wrapping_mul(n_mu)
                         .wrapping_add(ims[k]);
-                    let bin = if ok[k] { found } else { nb };
                     let s = if K == FLAT || K == PER {
                         ss[k]
-                    } else if ok[k] {
-                        s_of_q::<K>(qs[k], g.radius)
                     } else {
-                        0.0
+                        s_of_q::<K>(qs[k], g.radius)
                     };
                     let h = &mut acc.h[((j + k) % SUB) * (nb + 1) + bin];
                     h[0] += 1.0;
@@ -571,9 +575,19 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
                     if !ZZ {
                         h[3] += wzs[k];
                     }
-                    if acc.nreg > 0 && ok[k] {
+                    if acc.nreg > 0 {
                         acc.add_regions(bin, wws[k], a.reg[i], b.reg[j + k]);
                     }
+                }};
+            }
+            if mask == (1u32 << L) - 1 {
+                for k in 0..L {
+                    lane!(k);
+                }
+            } else {
+                while mask != 0 {
+                    lane!(mask.trailing_zeros() as usize);
+                    mask &= mask - 1;
                 }
             }
             j += L;
