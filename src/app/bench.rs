@@ -64,6 +64,9 @@ pub struct BenchRow {
     /// pairs / wall / threads, for the N-thread run, and pairs / wall for the 1-thread run.
     pub pairs_per_s_per_core_nt: f64,
     pub pairs_per_s_1t: f64,
+    /// CPU seconds of the 1-thread run and pairs per CPU second (less sensitive to other load).
+    pub cpu_1t_s: Option<f64>,
+    pub pairs_per_cpu_s_1t: Option<f64>,
     pub speedup: f64,
     /// Peak resident memory of the process during this workload (VmHWM, bytes).
     pub peak_bytes: Option<u64>,
@@ -103,6 +106,19 @@ fn peak_rss() -> Option<u64> {
     let line = s.lines().find(|l| l.starts_with("VmHWM:"))?;
     let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
     Some(kb * 1024)
+}
+
+/// CPU seconds (user + system) used by the process so far, from /proc/self/stat (clock ticks of
+/// 1/100 s, the Linux default); None where unavailable. Robust to other load on the machine,
+/// unlike wall time.
+fn cpu_seconds() -> Option<f64> {
+    let s = std::fs::read_to_string("/proc/self/stat").ok()?;
+    // fields after the parenthesised command name; utime and stime are fields 14 and 15
+    let rest = &s[s.rfind(')')? + 2..];
+    let f: Vec<&str> = rest.split_whitespace().collect();
+    let ut: f64 = f.get(11)?.parse().ok()?;
+    let st: f64 = f.get(12)?.parse().ok()?;
+    Some((ut + st) / 100.0)
 }
 
 /// Reset the peak-RSS mark so each workload reports its own peak (Linux clear_refs "5").
@@ -286,11 +302,13 @@ fn scipy_auto(
 }
 
 /// Time `f` with 1 and with n threads, resetting the peak-memory mark first.
-fn both<F: Fn(usize) -> Result<u64>>(n: usize, f: F) -> Result<(u64, f64, f64, Option<u64>)> {
+fn both<F: Fn(usize) -> Result<u64>>(n: usize, f: F) -> Result<Timing> {
     reset_peak();
+    let c0 = cpu_seconds();
     let t = Instant::now();
     let pairs1 = f(1)?;
     let t1 = t.elapsed().as_secs_f64();
+    let cpu1 = c0.and_then(|c0| Some(cpu_seconds()? - c0));
     let t = Instant::now();
     let pairsn = f(n)?;
     let tn = t.elapsed().as_secs_f64();
@@ -299,16 +317,32 @@ fn both<F: Fn(usize) -> Result<u64>>(n: usize, f: F) -> Result<(u64, f64, f64, O
             "bench: 1-thread and {n}-thread pair totals differ ({pairs1} vs {pairsn})"
         )));
     }
-    Ok((pairs1, t1, tn, peak_rss()))
+    Ok(Timing {
+        pairs: pairs1,
+        t1,
+        tn,
+        cpu1,
+        peak: peak_rss(),
+    })
 }
 
-#[allow(clippy::too_many_arguments)]
-fn row(
-    name: &str,
-    ns: Vec<usize>,
-    (pairs, t1, tn, peak): (u64, f64, f64, Option<u64>),
-    threads: usize,
-) -> BenchRow {
+/// Measurements of one workload.
+struct Timing {
+    pairs: u64,
+    t1: f64,
+    tn: f64,
+    cpu1: Option<f64>,
+    peak: Option<u64>,
+}
+
+fn row(name: &str, ns: Vec<usize>, m: Timing, threads: usize) -> BenchRow {
+    let Timing {
+        pairs,
+        t1,
+        tn,
+        cpu1,
+        peak,
+    } = m;
     let pay = payload(&ns);
     BenchRow {
         workload: name.into(),
@@ -319,6 +353,8 @@ fn row(
         threads,
         pairs_per_s_per_core_nt: pairs as f64 / tn / threads as f64,
         pairs_per_s_1t: pairs as f64 / t1,
+        cpu_1t_s: cpu1,
+        pairs_per_cpu_s_1t: cpu1.filter(|&c| c > 0.0).map(|c| pairs as f64 / c),
         speedup: t1 / tn,
         peak_bytes: peak,
         payload_bytes: pay,
@@ -534,12 +570,13 @@ pub fn render_table(r: &BenchReport) -> String {
         r.binning, r.threads, r.survey_scale
     );
     s.push_str(&format!(
-        "{:<26} {:>14} {:>9} {:>9} {:>10} {:>10} {:>7} {:>8} {:>7} {:>8} {:>8}\n",
+        "{:<26} {:>14} {:>9} {:>9} {:>10} {:>10} {:>10} {:>7} {:>8} {:>7} {:>8} {:>8}\n",
         "workload",
         "pairs",
         "t_1 [s]",
         "t_N [s]",
         "Mp/s 1t",
+        "Mp/cpu-s",
         "Mp/s/core",
         "x 1->N",
         "peak MB",
@@ -549,12 +586,13 @@ pub fn render_table(r: &BenchReport) -> String {
     ));
     for w in &r.rows {
         s.push_str(&format!(
-            "{:<26} {:>14} {:>9.3} {:>9.3} {:>10.1} {:>10.1} {:>7.2} {:>8} {:>7} {:>8} {:>8}\n",
+            "{:<26} {:>14} {:>9.3} {:>9.3} {:>10.1} {:>10} {:>10.1} {:>7.2} {:>8} {:>7} {:>8} {:>8}\n",
             w.workload,
             w.pairs,
             w.wall_1t_s,
             w.wall_nt_s,
             w.pairs_per_s_1t / 1e6,
+            opt_f(w.pairs_per_cpu_s_1t.map(|v| v / 1e6), 1),
             w.pairs_per_s_per_core_nt / 1e6,
             w.speedup,
             opt_f(w.peak_bytes.map(|b| b as f64 / 1048576.0), 0),
@@ -575,6 +613,7 @@ pub fn render_table(r: &BenchReport) -> String {
     for n in &r.notes {
         s.push_str(&format!("note: {n}\n"));
     }
+    s.push_str("Mp/cpu-s: 1-thread pairs per CPU second of the process (robust to other load)\n");
     s.push_str("times include reading the catalogue file; x kiddo / x scipy = baseline time / our 1-thread time\n");
     s
 }
