@@ -270,7 +270,13 @@ fn scipy_auto(
             "scipy reference skipped: no --python and no .venv/bin/python".into(),
         );
     };
-    let script = Path::new(env!("CARGO_MANIFEST_DIR")).join("scripts/bench_reference.py");
+    // the working directory's copy first (a checkout), else the source tree this was built from
+    let local = Path::new("scripts/bench_reference.py");
+    let script = if local.exists() {
+        local.to_path_buf()
+    } else {
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("scripts/bench_reference.py")
+    };
     let mut cmd = std::process::Command::new(py);
     cmd.arg(&script)
         .arg("--points")
