@@ -7,7 +7,7 @@
 //!
 //! Two leaf kernels live side by side: `leaf_ref` (plain loops, binary-search bin) and
 //! `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that auto-vectorises, then a
-//! lookup-table bin index with one exact compare each way and a branch-free scatter into
+//! lookup-table bin index with one exact compare each way and a scatter of the accepted lanes only into
 //! interleaved sub-histograms), compiled for AVX-512 / AVX2 via `#[target_feature]` wrappers
 //! chosen at run time, or as portable code. Both evaluate each pair with the same floating-point
 //! expressions and add pair terms in the same order to the same sub-histogram, so they give
@@ -269,7 +269,7 @@ pub(crate) const SUB: usize = 8;
 /// Per-task f64 accumulators. A task (a top-level node pair) is summed in a fixed pair order and
 /// then converted to fixed point once, so totals do not depend on how tasks are spread over
 /// threads or shards. Each bin holds [count, w1w2, w1w2 s, w1w2 (z1+z2)/2]; counts are exact in
-/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a trash bin for rejected lanes.
+/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a spare slot (no longer written by the fast kernel).
 pub(crate) struct Acc {
     nb: usize,
     nreg: usize,
