@@ -148,6 +148,35 @@ enum Cmd {
         #[arg(long)]
         json: bool,
     },
+    /// Benchmark the counting path (file read + count) against single-thread baselines.
+    Bench(Box<BenchArgs>),
+}
+
+#[derive(Args)]
+struct BenchArgs {
+    /// Tiny sizes (a smoke run of a few seconds).
+    #[arg(long)]
+    quick: bool,
+    /// Also run the 1e6-point boxes.
+    #[arg(long)]
+    large: bool,
+    /// Survey size relative to 2e5 galaxies / 2e6 randoms.
+    #[arg(long, default_value_t = 0.1)]
+    scale: f64,
+    /// Threads for the N-thread runs (default: as for count).
+    #[arg(long)]
+    threads: Option<usize>,
+    /// Python with numpy + scipy for the cKDTree reference (default .venv/bin/python if present).
+    #[arg(long)]
+    python: Option<PathBuf>,
+    /// Keep the generated catalogue files in this folder.
+    #[arg(long)]
+    workdir: Option<PathBuf>,
+    #[arg(long, default_value_t = 20261201)]
+    seed: u64,
+    /// Write the report as JSON.
+    #[arg(long)]
+    out: Option<PathBuf>,
 }
 
 #[derive(Args)]
@@ -743,6 +772,18 @@ fn run(cli: Cli) -> Result<()> {
             };
             let s = app::demo::run(&opt)?;
             print!("{}", app::demo::render(&s, &out));
+        }
+        Cmd::Bench(a) => {
+            let opt = app::bench::BenchOptions {
+                quick: a.quick,
+                large: a.large,
+                scale: a.scale,
+                threads: app::resolve_threads(a.threads),
+                python: a.python.clone(),
+                workdir: a.workdir.clone(),
+                seed: a.seed,
+            };
+            app::bench::run_and_report(&opt, a.out.as_deref())?;
         }
         Cmd::Inspect {
             catalogue,

@@ -1,5 +1,6 @@
 //! Command implementations behind the thin CLI in src/main.rs. Each function takes plain option
 //! structs, does the work through the library modules, and writes its outputs atomically.
+pub mod bench;
 pub mod count;
 pub mod curvature;
 pub mod demo;

@@ -7,7 +7,7 @@
 //!
 //! Two leaf kernels live side by side: `leaf_ref` (plain loops, binary-search bin) and
 //! `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that auto-vectorises, then a
-//! lookup-table bin index with one exact compare each way and a branch-free scatter into
+//! lookup-table bin index with one exact compare each way and a scatter of the accepted lanes only into
 //! interleaved sub-histograms), compiled for AVX-512 / AVX2 via `#[target_feature]` wrappers
 //! chosen at run time, or as portable code. Both evaluate each pair with the same floating-point
 //! expressions and add pair terms in the same order to the same sub-histogram, so they give
@@ -269,7 +269,7 @@ pub(crate) const SUB: usize = 8;
 /// Per-task f64 accumulators. A task (a top-level node pair) is summed in a fixed pair order and
 /// then converted to fixed point once, so totals do not depend on how tasks are spread over
 /// threads or shards. Each bin holds [count, w1w2, w1w2 s, w1w2 (z1+z2)/2]; counts are exact in
-/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a trash bin for rejected lanes.
+/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a spare slot (no longer written by the fast kernel).
 pub(crate) struct Acc {
     nb: usize,
     nreg: usize,
@@ -278,6 +278,9 @@ pub(crate) struct Acc {
     ro: Vec<f64>,
     rdirty: Vec<bool>,
     rlist: Vec<usize>,
+    /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
+    /// w1w2 = 1 exactly, so its per-bin sum equals the (exact) count and is filled in at flush.
+    unit_w: bool,
 }
 
 impl Acc {
@@ -290,6 +293,7 @@ impl Acc {
             ro: vec![0.0; nb * nreg],
             rdirty: vec![false; nb * nreg],
             rlist: Vec::new(),
+            unit_w: false,
         }
     }
 
@@ -343,6 +347,9 @@ impl Acc {
                 }
                 *h = [0.0; 4];
             }
+            if self.unit_w {
+                t[1] = t[0];
+            }
             if t[0] != 0.0 {
                 out.npairs[b] += t[0] as u64;
                 out.wpairs[b] += to_fixed(t[1]);
@@ -361,6 +368,7 @@ impl Acc {
             self.rdirty[s] = false;
         }
         self.rlist.clear();
+        self.unit_w = false;
     }
 }
 
@@ -463,7 +471,7 @@ pub(crate) fn leaf_ref<const K: u8, const MU: bool>(
 /// branch-free (table + exact corrections, invalid lanes sent to the sentinel `nb`), and counted
 /// pairs are added in ascending j order, so the result is bitwise that of `leaf_ref`.
 #[inline(always)]
-fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
+fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -476,6 +484,9 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
     }
     let (qlo, qhi, n_mu, nb) = (bn.qlo(), bn.qhi(), bn.n_mu, bn.nb);
     let (l, hl) = (g.box_l, g.half_l);
+    if UW {
+        acc.unit_w = true;
+    }
     for i in lp.a0..lp.a1 {
         let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
         let (aw, az_) = (a.w[i], a.z[i]);
@@ -524,30 +535,59 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
                 if K == FLAT || K == PER {
                     ss[k] = s_of_q::<K>(q, 0.0);
                 }
-                let ww = aw * bw[k];
+                // unit weights: ww = 1 and ww * x = x exactly; zero redshifts: the z term is 0
+                let ww = if UW { 1.0 } else { aw * bw[k] };
                 wws[k] = ww;
-                wzs[k] = ww * (0.5 * (az_ + bzz[k]));
+                if !ZZ {
+                    wzs[k] = if UW {
+                        0.5 * (az_ + bzz[k])
+                    } else {
+                        ww * (0.5 * (az_ + bzz[k]))
+                    };
+                }
             }
-            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order;
-            // rejected lanes go to the trash bin `nb` without a branch (flat metrics)
-            if ok.iter().any(|&v| v) {
-                for k in 0..L {
-                    let found = bn
+            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order.
+            // Only accepted lanes are visited (all of them straight through when every lane is
+            // accepted, else the set bits of the mask in ascending order), so the terms reach
+            // each sub-histogram in the same order as in `leaf_ref`.
+            let mut mask = 0u32;
+            for (k, &o) in ok.iter().enumerate() {
+                mask |= (o as u32) << k;
+            }
+            macro_rules! lane {
+                ($k:expr) => {{
+                    let k = $k;
+                    let bin = bn
                         .s_bin_from_cell(cells[k], qs[k])
                         .wrapping_mul(n_mu)
                         .wrapping_add(ims[k]);
-                    let bin = if ok[k] { found } else { nb };
                     let s = if K == FLAT || K == PER {
                         ss[k]
-                    } else if ok[k] {
-                        s_of_q::<K>(qs[k], g.radius)
                     } else {
-                        0.0
+                        s_of_q::<K>(qs[k], g.radius)
                     };
-                    acc.add(j + k, bin, wws[k], wws[k] * s, wzs[k]);
-                    if acc.nreg > 0 && ok[k] {
+                    let h = &mut acc.h[((j + k) % SUB) * (nb + 1) + bin];
+                    h[0] += 1.0;
+                    if !UW {
+                        h[1] += wws[k];
+                    }
+                    h[2] += if UW { s } else { wws[k] * s };
+                    if !ZZ {
+                        h[3] += wzs[k];
+                    }
+                    if acc.nreg > 0 {
                         acc.add_regions(bin, wws[k], a.reg[i], b.reg[j + k]);
                     }
+                }};
+            }
+            if mask == (1u32 << L) - 1 {
+                for k in 0..L {
+                    lane!(k);
+                }
+            } else {
+                while mask != 0 {
+                    lane!(mask.trailing_zeros() as usize);
+                    mask &= mask - 1;
                 }
             }
             j += L;
@@ -561,7 +601,7 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool>(
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f")]
-unsafe fn leaf_avx512<const K: u8, const MU: bool>(
+unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -569,12 +609,12 @@ unsafe fn leaf_avx512<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<8, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx2")]
-unsafe fn leaf_avx2<const K: u8, const MU: bool>(
+unsafe fn leaf_avx2<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -582,10 +622,10 @@ unsafe fn leaf_avx2<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<4, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
-fn leaf_portable<const K: u8, const MU: bool>(
+fn leaf_portable<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -593,7 +633,7 @@ fn leaf_portable<const K: u8, const MU: bool>(
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<4, K, MU>(a, b, lp, g, bn, acc)
+    leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
 }
 
 /// Instruction-set level picked once per count.
@@ -624,37 +664,130 @@ impl Simd {
 /// A monomorphised leaf kernel.
 pub(crate) type LeafFn = fn(&Pts, &Pts, LeafPair, &Geo, &Binner, &mut Acc);
 
-fn pick_fast<const K: u8, const MU: bool>(simd: Simd) -> LeafFn {
+fn pick_fast<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(simd: Simd) -> LeafFn {
     match simd {
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx512f")` returned true.
         Simd::Avx512 => {
-            |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU>(a, b, lp, g, bn, acc) }
+            |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU, UW, ZZ>(a, b, lp, g, bn, acc) }
         }
         #[cfg(target_arch = "x86_64")]
         // SAFETY: only chosen after `is_x86_feature_detected!("avx2")` returned true.
-        Simd::Avx2 => |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU>(a, b, lp, g, bn, acc) },
-        Simd::Portable => leaf_portable::<K, MU>,
+        Simd::Avx2 => {
+            |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU, UW, ZZ>(a, b, lp, g, bn, acc) }
+        }
+        Simd::Portable => leaf_portable::<K, MU, UW, ZZ>,
     }
 }
 
-fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd) -> LeafFn {
+fn pick_w<const K: u8, const MU: bool>(simd: Simd, d: DataFlags) -> LeafFn {
+    match (d.unit_w, d.zero_z) {
+        (false, false) => pick_fast::<K, MU, false, false>(simd),
+        (false, true) => pick_fast::<K, MU, false, true>(simd),
+        (true, false) => pick_fast::<K, MU, true, false>(simd),
+        (true, true) => pick_fast::<K, MU, true, true>(simd),
+    }
+}
+
+fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd, d: DataFlags) -> LeafFn {
     match (kind, mu) {
         (KernelKind::Reference, false) => leaf_ref::<K, false>,
         (KernelKind::Reference, true) => leaf_ref::<K, true>,
-        (KernelKind::Fast, false) => pick_fast::<K, false>(simd),
-        (KernelKind::Fast, true) => pick_fast::<K, true>(simd),
+        (KernelKind::Fast, false) => pick_w::<K, false>(simd, d),
+        (KernelKind::Fast, true) => pick_w::<K, true>(simd, d),
         #[cfg(test)]
         (KernelKind::Tally, _) => leaf_tally,
     }
 }
 
-/// Choose the leaf kernel for a metric kind, mu binning and instruction set.
+/// Properties of the data that let the fast kernel drop work without changing any bit.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub(crate) struct DataFlags {
+    /// Every weight in both catalogues is exactly 1.
+    pub unit_w: bool,
+    /// Every redshift in both catalogues is exactly 0 (boxes).
+    pub zero_z: bool,
+}
+
+impl DataFlags {
+    pub fn of(a: &Pts, b: &Pts) -> Self {
+        DataFlags {
+            unit_w: a.w.iter().chain(&b.w).all(|&w| w == 1.0),
+            zero_z: a.z.iter().chain(&b.z).all(|&z| z == 0.0),
+        }
+    }
+}
+
+/// Choose the leaf kernel for a metric kind, mu binning and instruction set (general data).
 pub(crate) fn pick(kind: KernelKind, metric: u8, mu: bool, simd: Simd) -> LeafFn {
+    pick_for(kind, metric, mu, simd, DataFlags::default())
+}
+
+/// As `pick`, specialised for the data flags (see `DataFlags::of`).
+pub(crate) fn pick_for(kind: KernelKind, metric: u8, mu: bool, simd: Simd, d: DataFlags) -> LeafFn {
     match metric {
-        FLAT => pick_k::<FLAT>(kind, mu, simd),
-        PER => pick_k::<PER>(kind, mu, simd),
-        CLO => pick_k::<CLO>(kind, mu, simd),
-        _ => pick_k::<OPE>(kind, mu, simd),
+        FLAT => pick_k::<FLAT>(kind, mu, simd, d),
+        PER => pick_k::<PER>(kind, mu, simd, d),
+        CLO => pick_k::<CLO>(kind, mu, simd, d),
+        _ => pick_k::<OPE>(kind, mu, simd, d),
+    }
+}
+
+#[cfg(test)]
+mod flag_tests {
+    //! The unit-weight / zero-redshift specialisations must give bitwise the reference kernel's
+    //! result (the general tests use random weights and so never take these paths).
+    use super::super::{count_impl, Binning, CountConfig, Metric, PointSet};
+    use super::KernelKind;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    fn points(n: usize, seed: u64, unit_w: bool, zero_z: bool) -> PointSet {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let mut p = PointSet::default();
+        for _ in 0..n {
+            p.x.push(rng.gen_range(0.0..300.0));
+            p.y.push(rng.gen_range(0.0..300.0));
+            p.z.push(rng.gen_range(0.0..300.0));
+            p.w.push(if unit_w { 1.0 } else { rng.gen_range(0.5..1.5) });
+            p.redshift
+                .push(if zero_z { 0.0 } else { rng.gen_range(0.4..0.7) });
+            p.region.push(rng.gen_range(0..3));
+        }
+        p
+    }
+
+    #[test]
+    fn specialised_kernels_are_bitwise_reference() {
+        let edges: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
+        for metric in [Metric::Euclidean, Metric::Periodic { box_size: 300.0 }] {
+            for (uw, zz) in [(true, true), (true, false), (false, true)] {
+                for (n_mu, n_regions) in [(1, 0), (3, 3)] {
+                    let c = CountConfig {
+                        binning: Binning::new(edges.clone(), n_mu).unwrap(),
+                        metric,
+                        n_regions,
+                        threads: 2,
+                        shard: (0, 1),
+                    };
+                    let a = points(1500, 1, uw, zz);
+                    let b = points(700, 2, uw, zz);
+                    let what = format!("{metric:?} uw={uw} zz={zz} n_mu={n_mu}");
+                    let r = count_impl(&a, None, &c, KernelKind::Reference).unwrap();
+                    let f = count_impl(&a, None, &c, KernelKind::Fast).unwrap();
+                    assert!(r.npairs.iter().sum::<u64>() > 10_000, "{what}");
+                    assert_eq!(r, f, "auto {what}");
+                    if uw {
+                        // w1 w2 = 1: the weighted sums equal the raw counts exactly
+                        for (k, &np) in f.npairs.iter().enumerate() {
+                            assert_eq!(super::super::from_fixed(f.wpairs[k]), np as f64);
+                        }
+                    }
+                    let r = count_impl(&a, Some(&b), &c, KernelKind::Reference).unwrap();
+                    let f = count_impl(&a, Some(&b), &c, KernelKind::Fast).unwrap();
+                    assert_eq!(r, f, "cross {what}");
+                }
+            }
+        }
     }
 }

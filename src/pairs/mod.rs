@@ -27,7 +27,9 @@ pub use sweep::{
     sweep_auto, sweep_auto_reference, sweep_cross, sweep_cross_reference, SweepConfig, MAX_VARIANTS,
 };
 
-use kernel::{Acc, Binner, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER};
+use kernel::{
+    Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER,
+};
 use rayon::prelude::*;
 use tree::{node_bounds, Tree};
 
@@ -592,7 +594,13 @@ pub(crate) fn count_impl(
         pb,
         geo,
         bn: &bn,
-        leaf: kernel::pick(kind, geo.kind, cfg.binning.n_mu > 1, Simd::detect()),
+        leaf: kernel::pick_for(
+            kind,
+            geo.kind,
+            cfg.binning.n_mu > 1,
+            Simd::detect(),
+            DataFlags::of(&pa, pb),
+        ),
         q_hi_pad,
         q_lo_pad,
     };
