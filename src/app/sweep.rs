@@ -387,9 +387,17 @@ fn sweep_plots(out: &Path, vars: &[Variant], summary: &SweepSummary) -> Result<(
         let xi = t.f64_column("xi")?.to_vec();
         curves.push((v.label.clone(), s, xi));
     }
-    plots::multi_xi_plot(&out.join("xi_per_fiducial"), &curves, "ξ(s) under each fiducial cosmology")?;
+    plots::multi_xi_plot(
+        &out.join("xi_per_fiducial"),
+        &curves,
+        "ξ(s) under each fiducial cosmology",
+    )?;
     for mapping in ["exact", "naive"] {
-        let rows: Vec<&SweepRow> = summary.rows.iter().filter(|r| r.mapping == mapping).collect();
+        let rows: Vec<&SweepRow> = summary
+            .rows
+            .iter()
+            .filter(|r| r.mapping == mapping)
+            .collect();
         if rows.len() < 2 {
             continue;
         }
@@ -398,7 +406,11 @@ fn sweep_plots(out: &Path, vars: &[Variant], summary: &SweepSummary) -> Result<(
         let dv_err: Vec<f64> = rows.iter().map(|r| r.dv_over_rd_err).collect();
         let al: Vec<f64> = rows.iter().map(|r| r.alpha).collect();
         let al_err: Vec<f64> = rows.iter().map(|r| r.alpha_err).collect();
-        let reference = summary.rows.iter().find(|r| r.label == summary.reference).map(|r| r.dv_over_rd);
+        let reference = summary
+            .rows
+            .iter()
+            .find(|r| r.label == summary.reference)
+            .map(|r| r.dv_over_rd);
         plots::xy_errorbar_plot(
             &out.join(format!("dv_over_rd_vs_omega_k_{mapping}")),
             &ok,
