@@ -524,7 +524,7 @@ pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
 pub const COVERAGE_WARN_FRACTION: f64 = 1e-3;
 
 /// Fraction of galaxies lying in equal-area sky cells (bands in sin Dec, equal RA steps) that
-/// hold no random, with the number of such galaxies and of cells on the sphere. The grid is the
+/// hold no random and have no random in the neighbouring cells either, with the number of such galaxies and of cells on the sphere. The grid is the
 /// finest (down to ~1.3 deg^2) at which the randoms average at least 20 per occupied cell, so
 /// Poisson holes in a sparse random catalogue are not mistaken for a footprint mismatch.
 pub fn uncovered_fraction(galaxies: &Catalogue, randoms: &Catalogue) -> (f64, usize, usize) {
@@ -543,11 +543,26 @@ pub fn uncovered_fraction(galaxies: &Catalogue, randoms: &Catalogue) -> (f64, us
         }
         let occupied = occ.iter().filter(|&&c| c > 0).count().max(1);
         if randoms.len() >= 20 * occupied || n_dec <= 2 {
+            // A galaxy counts as uncovered only when its cell and the 8 around it hold no
+            // random: partly covered cells at the footprint edge stay quiet.
+            let n_ra = 2 * n_dec;
+            let empty_around = |c: usize| {
+                let (t, p) = ((c / n_ra) as isize, (c % n_ra) as isize);
+                (-1..=1).all(|dt| {
+                    let tt = t + dt;
+                    tt < 0
+                        || tt >= n_dec as isize
+                        || (-1..=1).all(|dp| {
+                            let pp = (p + dp).rem_euclid(n_ra as isize) as usize;
+                            occ[tt as usize * n_ra + pp] == 0
+                        })
+                })
+            };
             let n_out = galaxies
                 .ra()
                 .iter()
                 .zip(galaxies.dec())
-                .filter(|(&a, &d)| occ[cell(a, d, n_dec)] == 0)
+                .filter(|(&a, &d)| empty_around(cell(a, d, n_dec)))
                 .count();
             return (
                 n_out as f64 / galaxies.len().max(1) as f64,
