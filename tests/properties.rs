@@ -143,7 +143,7 @@ proptest! {
     #[test]
     fn auto_counts_rotation_invariant(
         a in cat(50),
-        ang in (0.0..6.283f64, 0.0..3.1416f64, 0.0..6.283f64),
+        ang in (0.0..std::f64::consts::TAU, 0.0..std::f64::consts::PI, 0.0..std::f64::consts::TAU),
         n_mu in 1usize..4,
     ) {
         let p = points(&a);

@@ -28,10 +28,8 @@ fn write_counted(f: &mut fs::File, bytes: &[u8]) -> std::io::Result<()> {
         return f.write_all(bytes);
     }
     f.write_all(&bytes[..room])?;
-    Err(std::io::Error::new(
-        std::io::ErrorKind::StorageFull,
-        format!("No space left on device (simulated by {FAIL_WRITE_ENV}={limit})"),
-    ))
+    // ENOSPC (28 on Linux and macOS): exactly the error a full disk raises.
+    Err(std::io::Error::from_raw_os_error(28))
 }
 
 /// Write `bytes` to `path` atomically. Permission or disk-space failures are

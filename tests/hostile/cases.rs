@@ -155,7 +155,7 @@ fn fits_with_columns(path: &Path, cols: &[(&str, fitsio::tables::ColumnDataType)
         .iter()
         .map(|(name, t)| {
             let mut d = ColumnDescription::new(*name);
-            d.with_type(t.clone());
+            d.with_type(*t);
             if matches!(t, T::String) {
                 d.that_repeats(8);
             }
