@@ -9,7 +9,7 @@ fuzz_target!(|data: &[u8]| {
     if std::fs::write(&path, data).is_err() {
         return;
     }
-    let map = ColumnMap::sky("RA", "DEC", "Z", vec!["W".into()], None);
+    let map = ColumnMap::sky("RA", "DEC", "Z", vec!["WEIGHT".into()], None);
     if let Ok(cat) = read_catalogue(&path, &map, &RowFilter::default()) {
         assert!(cat.dec().iter().all(|d| d.abs() <= 90.0));
         assert!(cat.redshift().iter().all(|z| *z > 0.0));

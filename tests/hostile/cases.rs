@@ -455,6 +455,24 @@ pub fn all(dir: &Path) -> Vec<Case> {
         fail(2, &["huge.fits", "1099511627776 rows", "truncated"]),
     );
 
+    // Fuzzer finding (fits_reader): bytes inserted into the table header misalign every card
+    // after it; cfitsio then attempts a multi-petabyte allocation, which fails cleanly in a
+    // normal build (AddressSanitizer aborts on it instead). Must stay an input error.
+    let mut shifted = bytes.clone();
+    let at = (2880..5760)
+        .step_by(80)
+        .find(|&i| shifted[i..].starts_with(b"PCOUNT  ="))
+        .unwrap();
+    shifted.splice(at..at, [0xe2u8; 33]);
+    shifted.truncate(bytes.len() - 1291);
+    let p = write(dir, "misaligned.fits", &shifted);
+    c.count(
+        "fits_misaligned_header",
+        &p,
+        &[],
+        fail(2, &["misaligned.fits"]),
+    );
+
     // Cosmology TOML files.
     for (case, text, frag) in [
         (
