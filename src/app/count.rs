@@ -5,7 +5,7 @@
 //! the region, exactly one end) and `X.state.json` (the exact fixed-point histogram and its
 //! normalisation, from which shards merge bit for bit and `ringscale xi` reads). `counts.json`
 //! records the provenance shared by all three.
-use crate::catalog::{file_sha256, read_catalogue, Catalogue, ColumnMap, RowFilter};
+use crate::catalog::{file_sha256, read_catalogue, Catalogue, CatalogueKind, ColumnMap, RowFilter};
 use crate::cosmology::{Cosmology, DistanceTable};
 use crate::estimator::{auto_norm, cross_norm, split_auto_norm, PairNorm, WeightSums};
 use crate::geometry::{positions, Curvature};
@@ -545,6 +545,27 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
         .map(|p| WeightSums::from_weights(&p.w, &p.region, n_regions))
         .transpose()?;
 
+    if let Some(r) = randoms.as_ref().filter(|_| data.kind == CatalogueKind::Sky) {
+        let (frac, n_out, cells) = uncovered_fraction(&data, r);
+        if frac > COVERAGE_WARN_FRACTION {
+            messages.push(format!(
+                "warning: {:.2}% of the galaxies ({n_out} of {}) lie in sky cells ({cells} cells of ~{:.1} deg^2) that hold no randoms: the random footprint does not cover the galaxies ({} vs {})",
+                100.0 * frac,
+                data.len(),
+                41252.96 / cells as f64,
+                data.path.display(),
+                r.path.display()
+            ));
+        }
+    }
+    let extent = max_extent(std::iter::once(&pd).chain(pr.as_ref()));
+    if box_size.is_none() && opt.binning.s_max() > extent {
+        messages.push(format!(
+            "warning: s_max = {} Mpc/h exceeds the largest separation the catalogues can have ({extent:.1} Mpc/h, the diagonal of their bounding box); the bins above it stay empty",
+            opt.binning.s_max()
+        ));
+    }
+
     let cfg = CountConfig {
         binning: opt.binning.clone(),
         metric,
@@ -626,6 +647,79 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     })
 }
 
+/// Galaxies in coverage cells without randoms above this fraction trigger a warning; below it
+/// the edge cells of a well-matched footprint (a few galaxies by Poisson chance) stay quiet.
+pub const COVERAGE_WARN_FRACTION: f64 = 1e-3;
+
+/// Fraction of galaxies lying in equal-area sky cells (bands in sin Dec, equal RA steps) that
+/// hold no random and have no random in the neighbouring cells either, with the number of such galaxies and of cells on the sphere. The grid is the
+/// finest (down to ~1.3 deg^2) at which the randoms average at least 20 per occupied cell, so
+/// Poisson holes in a sparse random catalogue are not mistaken for a footprint mismatch.
+pub fn uncovered_fraction(galaxies: &Catalogue, randoms: &Catalogue) -> (f64, usize, usize) {
+    let cell = |ra: f64, dec: f64, n_dec: usize| {
+        let n_ra = 2 * n_dec;
+        let t = ((dec.to_radians().sin() + 1.0) * 0.5 * n_dec as f64).floor() as usize;
+        let p = (ra / 360.0 * n_ra as f64).floor() as usize;
+        t.min(n_dec - 1) * n_ra + p.min(n_ra - 1)
+    };
+    let mut n_dec = 128usize;
+    loop {
+        let mut occ = vec![0u32; 2 * n_dec * n_dec];
+        for (&a, &d) in randoms.ra().iter().zip(randoms.dec()) {
+            let c = cell(a, d, n_dec);
+            occ[c] = occ[c].saturating_add(1);
+        }
+        let occupied = occ.iter().filter(|&&c| c > 0).count().max(1);
+        if randoms.len() >= 20 * occupied || n_dec <= 2 {
+            // A galaxy counts as uncovered only when its cell and the 8 around it hold no
+            // random: partly covered cells at the footprint edge stay quiet.
+            let n_ra = 2 * n_dec;
+            let empty_around = |c: usize| {
+                let (t, p) = ((c / n_ra) as isize, (c % n_ra) as isize);
+                (-1..=1).all(|dt| {
+                    let tt = t + dt;
+                    tt < 0
+                        || tt >= n_dec as isize
+                        || (-1..=1).all(|dp| {
+                            let pp = (p + dp).rem_euclid(n_ra as isize) as usize;
+                            occ[tt as usize * n_ra + pp] == 0
+                        })
+                })
+            };
+            let n_out = galaxies
+                .ra()
+                .iter()
+                .zip(galaxies.dec())
+                .filter(|(&a, &d)| empty_around(cell(a, d, n_dec)))
+                .count();
+            return (
+                n_out as f64 / galaxies.len().max(1) as f64,
+                n_out,
+                occ.len(),
+            );
+        }
+        n_dec /= 2;
+    }
+}
+
+/// Diagonal of the joint bounding box of the point sets: no pair can be further apart.
+fn max_extent<'a>(sets: impl Iterator<Item = &'a PointSet>) -> f64 {
+    let mut lo = [f64::INFINITY; 3];
+    let mut hi = [f64::NEG_INFINITY; 3];
+    for p in sets {
+        for (k, col) in [&p.x, &p.y, &p.z].into_iter().enumerate() {
+            for &v in col {
+                lo[k] = lo[k].min(v);
+                hi[k] = hi[k].max(v);
+            }
+        }
+    }
+    (0..3)
+        .map(|k| (hi[k] - lo[k]).max(0.0).powi(2))
+        .sum::<f64>()
+        .sqrt()
+}
+
 /// Create the output folder and prove it is writable before any long computation.
 pub fn ensure_writable(dir: &Path) -> Result<()> {
     std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, "cannot create output folder", e))?;
@@ -636,19 +730,32 @@ pub fn ensure_writable(dir: &Path) -> Result<()> {
     Ok(())
 }
 
-/// Write a counts folder (creating it); every file atomically.
+/// Write a counts folder (creating it); every file atomically. When a write fails (a full
+/// disk), the files this call already wrote are removed again, so the folder never holds an
+/// incomplete set that a later `xi` could mistake for a result.
 pub fn write_folder(dir: &Path, states: &[CountState]) -> Result<()> {
     std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, "cannot create output folder", e))?;
-    for st in states {
-        write_state(dir, st)?;
+    let mut written = Vec::new();
+    let result = (|| -> Result<()> {
+        for st in states {
+            write_state(dir, st, &mut written)?;
+        }
+        if let Some(first) = states.first() {
+            let p = dir.join("counts.json");
+            json::write_json(&p, &first.meta)?;
+            written.push(p);
+        }
+        Ok(())
+    })();
+    if result.is_err() {
+        for p in &written {
+            let _ = std::fs::remove_file(p);
+        }
     }
-    if let Some(first) = states.first() {
-        json::write_json(&dir.join("counts.json"), &first.meta)?;
-    }
-    Ok(())
+    result
 }
 
-fn write_state(dir: &Path, st: &CountState) -> Result<()> {
+fn write_state(dir: &Path, st: &CountState, written: &mut Vec<PathBuf>) -> Result<()> {
     let c = &st.counts;
     let b = &c.binning;
     let (n_s, n_mu) = (b.n_s(), b.n_mu);
@@ -689,24 +796,27 @@ fn write_state(dir: &Path, st: &CountState) -> Result<()> {
         "normalisation": st.norm.total,
         "provenance": st.meta,
     });
+    let p = dir.join(format!("{}.ecsv", st.pairing));
     ecsv::write_ecsv(
-        &dir.join(format!("{}.ecsv", st.pairing)),
+        &p,
         &ecsv::Table {
             columns: cols,
             meta,
         },
     )?;
+    written.push(p);
     if c.n_regions > 0 {
         let mut arr = Vec::with_capacity(2 * c.n_regions * nb);
         arr.extend(c.region_both.iter().map(|&v| from_fixed(v)));
         arr.extend(c.region_one.iter().map(|&v| from_fixed(v)));
-        npy::write_npy_f64(
-            &dir.join(format!("{}_regions.npy", st.pairing)),
-            &arr,
-            &[2, c.n_regions, nb],
-        )?;
+        let p = dir.join(format!("{}_regions.npy", st.pairing));
+        npy::write_npy_f64(&p, &arr, &[2, c.n_regions, nb])?;
+        written.push(p);
     }
-    json::write_json(&dir.join(format!("{}.state.json", st.pairing)), st)
+    let p = dir.join(format!("{}.state.json", st.pairing));
+    json::write_json(&p, st)?;
+    written.push(p);
+    Ok(())
 }
 
 /// Read the exact states from a counts folder (dd, and dr/rr when present).

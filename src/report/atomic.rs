@@ -8,6 +8,30 @@ use std::sync::atomic::{AtomicU64, Ordering};
 
 static COUNTER: AtomicU64 = AtomicU64::new(0);
 
+/// Test-only fault injection (documented in tests/hostile.rs): when the environment variable
+/// `RINGSCALE_TEST_FAIL_WRITE_AFTER_BYTES=N` is set, atomic writes of this process fail with a
+/// "no space left" error once N bytes in total have been written, as a full disk would. It lets
+/// the integration tests check exit code 3 and the clean-up without mounting a small filesystem.
+pub const FAIL_WRITE_ENV: &str = "RINGSCALE_TEST_FAIL_WRITE_AFTER_BYTES";
+static WRITTEN: AtomicU64 = AtomicU64::new(0);
+
+fn write_counted(f: &mut fs::File, bytes: &[u8]) -> std::io::Result<()> {
+    let limit = std::env::var(FAIL_WRITE_ENV)
+        .ok()
+        .and_then(|v| v.trim().parse::<u64>().ok());
+    let Some(limit) = limit else {
+        return f.write_all(bytes);
+    };
+    let before = WRITTEN.fetch_add(bytes.len() as u64, Ordering::Relaxed);
+    let room = limit.saturating_sub(before) as usize;
+    if room >= bytes.len() {
+        return f.write_all(bytes);
+    }
+    f.write_all(&bytes[..room])?;
+    // ENOSPC (28 on Linux and macOS): exactly the error a full disk raises.
+    Err(std::io::Error::from_raw_os_error(28))
+}
+
 /// Write `bytes` to `path` atomically. Permission or disk-space failures are
 /// `Error::Resource`, other I/O failures `Error::Input` (see `Error::io`). The temporary file is
 /// removed on any error.
@@ -31,7 +55,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<()> {
             .create_new(true)
             .open(&tmp)
             .map_err(|e| Error::io(&tmp, "creating temporary output file", e))?;
-        f.write_all(bytes)
+        write_counted(&mut f, bytes)
             .map_err(|e| Error::io(&tmp, "writing temporary output file", e))?;
         f.sync_all()
             .map_err(|e| Error::io(&tmp, "syncing temporary output file", e))?;
