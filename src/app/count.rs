@@ -99,7 +99,7 @@ pub struct CountOutcome {
     pub messages: Vec<String>,
 }
 
-fn input_info(cat: &Catalogue, weights: WeightSums) -> Result<InputInfo> {
+pub(crate) fn input_info(cat: &Catalogue, weights: WeightSums) -> Result<InputInfo> {
     Ok(InputInfo {
         path: cat.path.display().to_string(),
         sha256: file_sha256(&cat.path)?,
@@ -190,7 +190,7 @@ fn point_set(cat: &Catalogue, pos: crate::geometry::Positions, region: Vec<u32>)
 }
 
 /// Every `m`-th object starting at `start`: the deterministic split-random subsets.
-fn subset(p: &PointSet, start: usize, m: usize) -> PointSet {
+pub(crate) fn subset(p: &PointSet, start: usize, m: usize) -> PointSet {
     let pick = |v: &Vec<f64>| {
         v.iter()
             .skip(start)
@@ -757,21 +757,8 @@ pub fn write_folder(dir: &Path, states: &[CountState]) -> Result<()> {
 
 fn write_state(dir: &Path, st: &CountState, written: &mut Vec<PathBuf>) -> Result<()> {
     let c = &st.counts;
-    let b = &c.binning;
-    let (n_s, n_mu) = (b.n_s(), b.n_mu);
-    let nb = b.n_bins();
-    let mut s_lo = Vec::with_capacity(nb);
-    let mut s_hi = Vec::with_capacity(nb);
-    let mut mu_lo = Vec::with_capacity(nb);
-    let mut mu_hi = Vec::with_capacity(nb);
-    for i in 0..n_s {
-        for j in 0..n_mu {
-            s_lo.push(b.s_edges[i]);
-            s_hi.push(b.s_edges[i + 1]);
-            mu_lo.push(j as f64 / n_mu as f64);
-            mu_hi.push((j + 1) as f64 / n_mu as f64);
-        }
-    }
+    let (n_mu, nb) = (c.binning.n_mu, c.binning.n_bins());
+    let (s_lo, s_hi, mu_lo, mu_hi) = c.binning.bin_edge_columns();
     let mut cols = vec![
         ecsv::Column::f64("s_lo", s_lo),
         ecsv::Column::f64("s_hi", s_hi),

@@ -8,10 +8,12 @@
 //!
 //! Output: per variant a folder `<label>/` with `counts/` (as `ringscale count`), `xi/` (as
 //! `ringscale xi`) and `fit/` (as `ringscale fit`); then `sweep.json` and `sweep.ecsv`.
-use super::count::{ensure_writable, write_folder, CountMeta, CountState, InputInfo, RegionChoice};
+use super::count::{
+    ensure_writable, input_info, subset, write_folder, CountMeta, CountState, RegionChoice,
+};
 use super::fit::{FitOptions, FitResult};
 use super::xi::XiOptions;
-use crate::catalog::{file_sha256, read_catalogue, Catalogue, CatalogueKind, ColumnMap, RowFilter};
+use crate::catalog::{read_catalogue, Catalogue, CatalogueKind, ColumnMap, RowFilter};
 use crate::cosmology::{Cosmology, DistanceTable};
 use crate::estimator::{auto_norm, cross_norm, split_auto_norm, WeightSums};
 use crate::fit::{IsotropicOptions, TemplateOptions};
@@ -163,25 +165,6 @@ fn variants(fids: &[(String, Cosmology)], naive: bool) -> Vec<Variant> {
     out
 }
 
-/// Every `m`-th object starting at `start` (the split-random subsets of `count`).
-fn subset(p: &PointSet, start: usize, m: usize) -> PointSet {
-    let pick = |v: &Vec<f64>| {
-        v.iter()
-            .skip(start)
-            .step_by(m)
-            .copied()
-            .collect::<Vec<f64>>()
-    };
-    PointSet {
-        x: pick(&p.x),
-        y: pick(&p.y),
-        z: pick(&p.z),
-        w: pick(&p.w),
-        redshift: pick(&p.redshift),
-        region: p.region.iter().skip(start).step_by(m).copied().collect(),
-    }
-}
-
 fn point_sets(cat: &Catalogue, vars: &[Variant], region: &[u32]) -> Result<Vec<PointSet>> {
     let zmax = cat.redshift().iter().fold(0.0f64, |a, &z| a.max(z));
     vars.iter()
@@ -198,17 +181,6 @@ fn point_sets(cat: &Catalogue, vars: &[Variant], region: &[u32]) -> Result<Vec<P
             })
         })
         .collect()
-}
-
-fn input_info(cat: &Catalogue, weights: WeightSums) -> Result<InputInfo> {
-    Ok(InputInfo {
-        path: cat.path.display().to_string(),
-        sha256: file_sha256(&cat.path)?,
-        rows_in_file: cat.rows_in_file,
-        rows_used: cat.len(),
-        rows_filtered: cat.rows_filtered,
-        weights,
-    })
 }
 
 /// Run the sweep; returns the summary also written to `out/sweep.json`.

@@ -234,18 +234,7 @@ pub fn run(opt: &XiOptions) -> Result<XiSummary> {
             meta.box_size,
         )?;
         let bb = &dd.binning;
-        let mut s_lo = Vec::new();
-        let mut s_hi = Vec::new();
-        let mut mu_lo = Vec::new();
-        let mut mu_hi = Vec::new();
-        for i in 0..n_s {
-            for j in 0..n_mu {
-                s_lo.push(bb.s_edges[i]);
-                s_hi.push(bb.s_edges[i + 1]);
-                mu_lo.push(j as f64 / n_mu as f64);
-                mu_hi.push((j + 1) as f64 / n_mu as f64);
-            }
-        }
+        let (s_lo, s_hi, mu_lo, mu_hi) = bb.bin_edge_columns();
         let t = ecsv::Table {
             columns: vec![
                 ecsv::Column::f64("s_lo", s_lo),

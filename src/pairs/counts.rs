@@ -69,6 +69,20 @@ impl Binning {
     pub fn s_min(&self) -> f64 {
         self.s_edges[0]
     }
+    /// Per-bin (s_lo, s_hi, mu_lo, mu_hi), in bin order (`is * n_mu + imu`), for output tables.
+    pub fn bin_edge_columns(&self) -> (Vec<f64>, Vec<f64>, Vec<f64>, Vec<f64>) {
+        let (n_s, n_mu) = (self.n_s(), self.n_mu);
+        let mut out = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
+        for i in 0..n_s {
+            for j in 0..n_mu {
+                out.0.push(self.s_edges[i]);
+                out.1.push(self.s_edges[i + 1]);
+                out.2.push(j as f64 / n_mu as f64);
+                out.3.push((j + 1) as f64 / n_mu as f64);
+            }
+        }
+        out
+    }
     pub fn s_max(&self) -> f64 {
         *self.s_edges.last().unwrap()
     }
