@@ -174,7 +174,9 @@ fn plan_equals_separate_commands() {
     assert_eq!(m["version"], env!("CARGO_PKG_VERSION"));
     assert_eq!(m["threads"], 2);
     assert_eq!(m["inputs"].as_array().unwrap().len(), 2);
-    assert_eq!(m["stages"].as_array().unwrap().len(), 6);
+    assert_eq!(m["stages"].as_array().unwrap().len(), 7);
+    assert_eq!(stage_status(&out, "curvature"), "disabled");
+    assert!(!out.join("curvature").exists());
     // A rerun skips every stage and changes nothing.
     let before = results(&out);
     let o = ok(run_plan(&plan, &["--log-format", "json"]));
@@ -193,6 +195,81 @@ fn plan_equals_separate_commands() {
         "rerun counted again: {log}"
     );
     assert!(before == results(&out));
+}
+
+fn read_json(p: &Path) -> serde_json::Value {
+    serde_json::from_str(&std::fs::read_to_string(p).unwrap()).unwrap()
+}
+
+/// The status `manifest.json` records for one stage.
+fn stage_status(out: &Path, stage: &str) -> String {
+    let m = read_json(&out.join("manifest.json"));
+    let s = m["stages"].as_array().unwrap();
+    let e = s
+        .iter()
+        .find(|e| e["stage"] == stage)
+        .expect("stage missing");
+    e["status"].as_str().unwrap().to_string()
+}
+
+#[test]
+fn curvature_stage_equals_separate_command_and_resumes() {
+    let (d, plan) = setup("[curvature]\nenabled = true\n");
+    ok(run_plan(&plan, &[]));
+    let out = d.path().join("out");
+    let inf = out.join("curvature/inference.json");
+    assert_eq!(stage_status(&out, "curvature"), "ran");
+    // Same bytes as `ringscale curvature` on the run's own fit with its default seed.
+    let sep = d.path().join("sep");
+    ok(bin()
+        .args(["curvature", "--bao"])
+        .arg(out.join("fit/fit.json"))
+        .arg("--out")
+        .arg(&sep)
+        .output()
+        .unwrap());
+    let mine = std::fs::read(&inf).unwrap();
+    assert!(
+        mine == std::fs::read(sep.join("inference.json")).unwrap(),
+        "curvature/inference.json differs from the separate command"
+    );
+    assert!(out.join("curvature/posterior_omega_k.svg").is_file());
+    // summary.json carries the statement.
+    let statement = read_json(&inf)["statement"].clone();
+    assert!(statement.as_str().is_some_and(|s| s.contains("Omega_k")));
+    assert_eq!(read_json(&out.join("summary.json"))["curvature"], statement);
+    // A rerun skips the stage and changes nothing.
+    let before = results(&out);
+    ok(run_plan(&plan, &[]));
+    assert_eq!(stage_status(&out, "curvature"), "skipped");
+    assert!(before == results(&out));
+    // Killed right after the fit's checkpoint (the curvature marker is the last checkpoint
+    // write), then resumed: identical bytes to the uninterrupted run.
+    let writes = std::fs::read_dir(out.join("checkpoints")).unwrap().count();
+    let out2 = d.path().join("out2");
+    let o2 = out2.display().to_string();
+    let killed = bin()
+        .arg("run")
+        .arg(&plan)
+        .args(["--threads", "2", "--output", &o2])
+        .env("RINGSCALE_TEST_ABORT_AFTER", (writes - 1).to_string())
+        .output()
+        .unwrap();
+    assert_eq!(killed.status.code(), Some(137));
+    assert!(out2.join("fit/fit.json").is_file());
+    ok(run_plan(&plan, &["--output", &o2]));
+    assert_eq!(stage_status(&out2, "fit"), "skipped");
+    assert_eq!(stage_status(&out2, "curvature"), "ran");
+    assert_same(&out, &out2);
+}
+
+#[test]
+fn unknown_curvature_key_is_exit_2_naming_it() {
+    let (_d, plan) = setup("[curvature]\nenabled = true\nsede = 3\n");
+    let e = run_plan(&plan, &[]);
+    assert_eq!(e.status.code(), Some(2));
+    let msg = String::from_utf8_lossy(&e.stderr);
+    assert!(msg.contains("sede"), "{msg}");
 }
 
 #[test]

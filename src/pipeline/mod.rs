@@ -1,6 +1,6 @@
-//! Unattended runs: one TOML plan drives load -> count -> estimate -> fit -> report, with
-//! content-addressed checkpoints so a rerun (or a run resumed after a kill) skips finished work
-//! and ends with the same bytes as an uninterrupted run.
+//! Unattended runs: one TOML plan drives load -> count -> estimate -> fit -> (curvature) ->
+//! report, with content-addressed checkpoints so a rerun (or a run resumed after a kill) skips
+//! finished work and ends with the same bytes as an uninterrupted run.
 //!
 //! Counting is cut into `run.units` deterministic parts per pairing (dd, dr, each RR subset);
 //! part u counts the pair-engine shard (u, units), and integer pair sums merge exactly, so any
@@ -10,7 +10,8 @@
 //! plan, reuses their parts, counts whatever is missing and finishes the later stages.
 //!
 //! Output folder layout:
-//! - `counts/`, `xi/`, `fit/`: the same files `ringscale count`, `xi` and `fit` write;
+//! - `counts/`, `xi/`, `fit/`, `curvature/`: the same files `ringscale count`, `xi`, `fit` and
+//!   `curvature` write (`curvature/` only with `[curvature] enabled = true`);
 //! - `mocks/NNN-NAME/{counts,xi}/` for each mock catalogue;
 //! - `summary.json`: the headline numbers; `manifest.json`: provenance, timings, peak memory;
 //! - `checkpoints/`: per-part counts, count headers and stage markers; `shards/`: shard records.
@@ -523,6 +524,8 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
     let t = Instant::now();
     let has_cov = plan.output.join("xi").join("covariance.npy").exists();
     let mut fit_result = None;
+    // Checksums of the fit's files, which key the curvature stage.
+    let mut fit_files: Option<Vec<(String, String)>> = None;
     if !plan.fit.enabled {
         st.done("fit", "disabled", t);
     } else if covariance == "none" || !has_cov {
@@ -543,22 +546,75 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         ));
         let marker_path = ckdir.join(format!("stage-fit-{}.json", short(&key)));
         let dir = out.join("fit");
-        let valid =
-            checkpoint::read::<StageDone>(&marker_path)?.is_some_and(|m| m.still_valid(&key, out));
-        if !valid {
-            let o = crate::app::fit::run(&fit_options(plan))?;
-            fit_result = Some(serde_json::to_value(&o.result).unwrap_or_default());
-            let m = StageDone::record("fit", &key, out, &dir)?;
-            checkpoint::write(&marker_path, &m)?;
-            st.done("fit", "ran", t);
-        } else {
-            st.done("fit", "skipped", t);
+        match checkpoint::read::<StageDone>(&marker_path)? {
+            Some(m) if m.still_valid(&key, out) => {
+                fit_files = Some(m.files);
+                st.done("fit", "skipped", t);
+            }
+            _ => {
+                let o = crate::app::fit::run(&fit_options(plan))?;
+                fit_result = Some(serde_json::to_value(&o.result).unwrap_or_default());
+                let m = StageDone::record("fit", &key, out, &dir)?;
+                checkpoint::write(&marker_path, &m)?;
+                fit_files = Some(m.files);
+                st.done("fit", "ran", t);
+            }
         }
         if fit_result.is_none() {
             let text = std::fs::read_to_string(dir.join("fit.json"))
                 .map_err(|e| Error::io(&dir.join("fit.json"), "cannot read", e))?;
             fit_result = serde_json::from_str(&text).ok();
         }
+    }
+
+    // Curvature: the run's D_V/r_d (plus any extra measurements) -> Omega_k.
+    let t = Instant::now();
+    let mut curvature_statement = None;
+    let cp = &plan.curvature;
+    if !cp.enabled {
+        st.done("curvature", "disabled", t);
+    } else if let Some(fit_files) = &fit_files {
+        // The priors and extra measurements enter by content as well as by path.
+        let extra_sha = cp
+            .extra_bao
+            .iter()
+            .map(|p| hash_file(p))
+            .collect::<Result<Vec<_>>>()?;
+        let priors_sha = cp.priors.as_deref().map(hash_file).transpose()?;
+        let key = hash_json(&(
+            "curvature",
+            crate::VERSION,
+            fit_files,
+            cp,
+            priors_sha,
+            extra_sha,
+        ));
+        let marker_path = ckdir.join(format!("stage-curvature-{}.json", short(&key)));
+        let dir = out.join("curvature");
+        let valid =
+            checkpoint::read::<StageDone>(&marker_path)?.is_some_and(|m| m.still_valid(&key, out));
+        if valid {
+            st.done("curvature", "skipped", t);
+        } else {
+            crate::app::curvature::run(&curvature_options(plan))?;
+            let m = StageDone::record("curvature", &key, out, &dir)?;
+            checkpoint::write(&marker_path, &m)?;
+            st.done("curvature", "ran", t);
+        }
+        let path = dir.join("inference.json");
+        let text =
+            std::fs::read_to_string(&path).map_err(|e| Error::io(&path, "cannot read", e))?;
+        let v: serde_json::Value = serde_json::from_str(&text)
+            .map_err(|e| Error::input(format!("{}: not valid JSON ({e})", path.display())))?;
+        curvature_statement = v["statement"].as_str().map(String::from);
+    } else {
+        log.event(
+            "curvature",
+            "warning",
+            "no fit result: curvature stage skipped",
+            serde_json::json!({}),
+        );
+        st.done("curvature", "skipped-no-fit", t);
     }
 
     // Report.
@@ -574,6 +630,7 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         "n_mocks": plan.inputs.mocks.len(),
         "covariance": covariance,
         "xi": xi_summary,
+        "curvature": curvature_statement,
     });
     // fit.json goes in verbatim: re-encoding parsed floats could change their last digit.
     let mut text = serde_json::to_string_pretty(&summary)
@@ -606,6 +663,9 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
             ),
             serde_json::json!({"alpha": f["alpha"], "dv_over_rd": f["dv_over_rd"]}),
         );
+    }
+    if let Some(s) = &curvature_statement {
+        log.event("report", "curvature", s, serde_json::json!({}));
     }
     manifest.stages = st.list;
     manifest.peak_memory_kib = peak_memory_kib();
@@ -650,6 +710,22 @@ pub fn fit_options(plan: &Plan) -> crate::app::fit::FitOptions {
         power_table: f.power_table.clone(),
         rd_user: f.rd,
         plots: f.plots,
+    }
+}
+
+/// The `ringscale curvature` options a plan implies: the run's own fit first, then the extras.
+pub fn curvature_options(plan: &Plan) -> crate::app::curvature::CurvatureOptions {
+    let c = &plan.curvature;
+    let mut bao = vec![plan.output.join("fit").join("fit.json")];
+    bao.extend(c.extra_bao.iter().cloned());
+    crate::app::curvature::CurvatureOptions {
+        bao,
+        priors: c.priors.clone(),
+        settings: crate::inference::SamplerSettings {
+            seed: c.seed,
+            ..Default::default()
+        },
+        out: plan.output.join("curvature"),
     }
 }
 

@@ -22,6 +22,7 @@ pub struct Plan {
     pub estimator: EstimatorPlan,
     pub covariance: CovariancePlan,
     pub fit: FitPlan,
+    pub curvature: CurvaturePlan,
     pub run: RunPlan,
 }
 
@@ -35,6 +36,7 @@ impl Default for Plan {
             estimator: EstimatorPlan::default(),
             covariance: CovariancePlan::default(),
             fit: FitPlan::default(),
+            curvature: CurvaturePlan::default(),
             run: RunPlan::default(),
         }
     }
@@ -209,6 +211,32 @@ impl Default for FitPlan {
     }
 }
 
+/// Curvature inference after the fit: what the run's D_V/r_d (plus any extra measurements)
+/// says about Omega_k; the same computation as `ringscale curvature`.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct CurvaturePlan {
+    /// Run the curvature stage (default false; needs the fit).
+    pub enabled: bool,
+    /// Priors TOML (default: the Planck 2018 r_d prior with flat Omega_k, Omega_m, h).
+    pub priors: Option<PathBuf>,
+    /// More BAO measurements: fit.json files or tables (default none).
+    pub extra_bao: Vec<PathBuf>,
+    /// Sampler seed (default 1, as `ringscale curvature`).
+    pub seed: u64,
+}
+
+impl Default for CurvaturePlan {
+    fn default() -> Self {
+        CurvaturePlan {
+            enabled: false,
+            priors: None,
+            extra_bao: vec![],
+            seed: crate::inference::SamplerSettings::default().seed,
+        }
+    }
+}
+
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct RunPlan {
@@ -277,6 +305,10 @@ impl Plan {
         if let Some(p) = &mut self.fit.power_table {
             fix(p);
         }
+        if let Some(p) = &mut self.curvature.priors {
+            fix(p);
+        }
+        self.curvature.extra_bao.iter_mut().for_each(fix);
         // A cosmology is a preset name unless a file of that name sits beside the plan.
         for c in std::iter::once(&mut self.geometry.cosmology).chain(self.fit.cosmology.as_mut()) {
             let cand = base.join(&*c);
@@ -336,6 +368,9 @@ impl Plan {
             return bad(format!(
                 "[fit] alpha_grid [{a}, {b}, {st}]: need LO < HI and STEP > 0"
             ));
+        }
+        if self.curvature.enabled && !self.fit.enabled {
+            return bad("[curvature] enabled = true needs [fit] enabled = true".into());
         }
         self.binning()?;
         Ok(())
@@ -418,6 +453,8 @@ mod tests {
         assert_eq!(p.binning.edges, "0:200:40");
         assert_eq!(p.run.units, 8);
         assert_eq!(p.fit.range, [50.0, 150.0]);
+        assert!(!p.curvature.enabled);
+        assert_eq!(p.curvature.seed, 1);
         assert!(parse_plan("", "t").is_err());
     }
 
@@ -440,6 +477,7 @@ mod tests {
             "[covariance]\nsource = \"bootstrap\"",
             "[run]\nunits = 0",
             "[fit]\nrange = [150.0, 50.0]",
+            "[fit]\nenabled = false\n[curvature]\nenabled = true",
             "[binning]\nedges = \"0:200\"",
         ] {
             let p = parse_plan(&format!("[inputs]\ndata = \"g.csv\"\n{t}\n"), "t").unwrap();
