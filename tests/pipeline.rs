@@ -174,9 +174,12 @@ fn plan_equals_separate_commands() {
     assert_eq!(m["version"], env!("CARGO_PKG_VERSION"));
     assert_eq!(m["threads"], 2);
     assert_eq!(m["inputs"].as_array().unwrap().len(), 2);
-    assert_eq!(m["stages"].as_array().unwrap().len(), 7);
+    assert_eq!(m["stages"].as_array().unwrap().len(), 8);
     assert_eq!(stage_status(&out, "curvature"), "disabled");
     assert!(!out.join("curvature").exists());
+    assert_eq!(stage_status(&out, "sweep"), "disabled");
+    assert!(!out.join("sweep").exists());
+    assert!(read_json(&out.join("summary.json"))["sweep"].is_null());
     // A rerun skips every stage and changes nothing.
     let before = results(&out);
     let o = ok(run_plan(&plan, &["--log-format", "json"]));
@@ -270,6 +273,80 @@ fn unknown_curvature_key_is_exit_2_naming_it() {
     assert_eq!(e.status.code(), Some(2));
     let msg = String::from_utf8_lossy(&e.stderr);
     assert!(msg.contains("sede"), "{msg}");
+}
+
+#[test]
+fn sweep_stage_equals_separate_command_and_resumes() {
+    let (d, plan) = setup("[sweep]\nenabled = true\nomega_k = [0.0, 0.05]\n");
+    ok(run_plan(&plan, &[]));
+    let out = d.path().join("out");
+    assert_eq!(stage_status(&out, "sweep"), "ran");
+    // Same bytes as `ringscale sweep` with the plan's options (plan_text above).
+    let sep = d.path().join("sep");
+    let s = |p: &Path| p.display().to_string();
+    ok(bin()
+        .args(["sweep", "--data", &s(&d.path().join("g.csv"))])
+        .args(["--randoms", &s(&d.path().join("r.csv"))])
+        .args(["--cosmology", "planck18", "--omega-k-list", "0.0,0.05"])
+        .args(["--edges", "40:160:8", "--rr-splits", "2", "--regions", "12"])
+        .args([
+            "--region-seed",
+            "1",
+            "--fit-range",
+            "40:160",
+            "--sigma-nl",
+            "8",
+        ])
+        .args(["--no-plots", "--threads", "2", "--out", &s(&sep)])
+        .output()
+        .unwrap());
+    for f in ["sweep.json", "sweep.ecsv"] {
+        assert!(
+            std::fs::read(out.join("sweep").join(f)).unwrap()
+                == std::fs::read(sep.join(f)).unwrap(),
+            "sweep/{f} differs from the separate command"
+        );
+    }
+    // summary.json carries the spread and the reference of sweep.json.
+    let sj = read_json(&out.join("sweep/sweep.json"));
+    assert_eq!(sj["rows"].as_array().unwrap().len(), 2);
+    let sum = read_json(&out.join("summary.json"))["sweep"].clone();
+    assert_eq!(sum["reference"], sj["reference"]);
+    assert!(sum["reference"]
+        .as_str()
+        .is_some_and(|r| r.contains("+0.0000")));
+    assert_eq!(sum["exact_spread_sigma"], sj["exact_spread_sigma"]);
+    assert!(sum["exact_spread_sigma"].as_f64().is_some_and(|v| v >= 0.0));
+    // A rerun skips the stage and changes nothing.
+    let before = results(&out);
+    ok(run_plan(&plan, &[]));
+    assert_eq!(stage_status(&out, "sweep"), "skipped");
+    assert!(before == results(&out));
+}
+
+#[test]
+fn unknown_sweep_key_is_exit_2_naming_it() {
+    let (_d, plan) = setup("[sweep]\nenabled = true\nomegak = [0.0]\n");
+    let e = run_plan(&plan, &[]);
+    assert_eq!(e.status.code(), Some(2));
+    let msg = String::from_utf8_lossy(&e.stderr);
+    assert!(msg.contains("omegak"), "{msg}");
+}
+
+#[test]
+fn sweep_needs_survey_geometry_with_randoms() {
+    let d = tempfile::tempdir().unwrap();
+    write_catalogue(&d.path().join("g.csv"), 50, 11);
+    let plan = d.path().join("plan.toml");
+    std::fs::write(
+        &plan,
+        "output = \"out\"\n[inputs]\ndata = \"g.csv\"\n[sweep]\nenabled = true\n",
+    )
+    .unwrap();
+    let e = run_plan(&plan, &[]);
+    assert_eq!(e.status.code(), Some(2));
+    let msg = String::from_utf8_lossy(&e.stderr);
+    assert!(msg.contains("[sweep]") && msg.contains("randoms"), "{msg}");
 }
 
 #[test]

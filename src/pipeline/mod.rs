@@ -1,5 +1,5 @@
 //! Unattended runs: one TOML plan drives load -> count -> estimate -> fit -> (curvature) ->
-//! report, with content-addressed checkpoints so a rerun (or a run resumed after a kill) skips
+//! (sweep) -> report, with content-addressed checkpoints so a rerun (or a run resumed after a kill) skips
 //! finished work and ends with the same bytes as an uninterrupted run.
 //!
 //! Counting is cut into `run.units` deterministic parts per pairing (dd, dr, each RR subset);
@@ -10,8 +10,9 @@
 //! plan, reuses their parts, counts whatever is missing and finishes the later stages.
 //!
 //! Output folder layout:
-//! - `counts/`, `xi/`, `fit/`, `curvature/`: the same files `ringscale count`, `xi`, `fit` and
-//!   `curvature` write (`curvature/` only with `[curvature] enabled = true`);
+//! - `counts/`, `xi/`, `fit/`, `curvature/`, `sweep/`: the same files `ringscale count`, `xi`,
+//!   `fit`, `curvature` and `sweep` write (`curvature/` and `sweep/` only when their plan table
+//!   says `enabled = true`);
 //! - `mocks/NNN-NAME/{counts,xi}/` for each mock catalogue;
 //! - `summary.json`: the headline numbers; `manifest.json`: provenance, timings, peak memory;
 //! - `checkpoints/`: per-part counts, count headers and stage markers; `shards/`: shard records.
@@ -617,6 +618,56 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         st.done("curvature", "skipped-no-fit", t);
     }
 
+    // Sweep: the measurement under fiducials differing only in Omega_k.
+    let t = Instant::now();
+    let mut sweep_summary = serde_json::Value::Null;
+    if !plan.sweep.enabled {
+        st.done("sweep", "disabled", t);
+    } else {
+        // Everything the sweep reads, by content; the thread count is left out because the
+        // result is bitwise the same for any.
+        let key = hash_json(&(
+            "sweep",
+            crate::VERSION,
+            &manifest.inputs[0],
+            &randoms,
+            &cosmo_sha,
+            &plan.geometry,
+            &plan.inputs.columns,
+            &binning,
+            plan.estimator.rr_splits,
+            plan.estimator.regions,
+            plan.estimator.region_seed,
+            plan.fit.range,
+            plan.fit.alpha_grid,
+            plan.fit.sigma_nl,
+            plan.fit.plots,
+            &plan.sweep,
+        ));
+        let marker_path = ckdir.join(format!("stage-sweep-{}.json", short(&key)));
+        let dir = out.join("sweep");
+        let valid =
+            checkpoint::read::<StageDone>(&marker_path)?.is_some_and(|m| m.still_valid(&key, out));
+        if valid {
+            st.done("sweep", "skipped", t);
+        } else {
+            crate::app::sweep::run(&sweep_options(plan, opt.threads)?)?;
+            let m = StageDone::record("sweep", &key, out, &dir)?;
+            checkpoint::write(&marker_path, &m)?;
+            st.done("sweep", "ran", t);
+        }
+        // Read back from the file either way, so a rerun reports the same bytes.
+        let path = dir.join("sweep.json");
+        let text =
+            std::fs::read_to_string(&path).map_err(|e| Error::io(&path, "cannot read", e))?;
+        let v: serde_json::Value = serde_json::from_str(&text)
+            .map_err(|e| Error::input(format!("{}: not valid JSON ({e})", path.display())))?;
+        sweep_summary = serde_json::json!({
+            "exact_spread_sigma": v["exact_spread_sigma"],
+            "reference": v["reference"],
+        });
+    }
+
     // Report.
     let t = Instant::now();
     let xi_summary: serde_json::Value = std::fs::read_to_string(out.join("xi/xi_summary.json"))
@@ -631,6 +682,7 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
         "covariance": covariance,
         "xi": xi_summary,
         "curvature": curvature_statement,
+        "sweep": sweep_summary,
     });
     // fit.json goes in verbatim: re-encoding parsed floats could change their last digit.
     let mut text = serde_json::to_string_pretty(&summary)
@@ -727,6 +779,46 @@ pub fn curvature_options(plan: &Plan) -> crate::app::curvature::CurvatureOptions
         },
         out: plan.output.join("curvature"),
     }
+}
+
+/// The `ringscale sweep` options a plan implies: the plan's inputs, binning, regions and fit
+/// settings, with fiducials `geometry.cosmology` with Omega_k replaced by each `sweep.omega_k`.
+pub fn sweep_options(plan: &Plan, threads: usize) -> Result<crate::app::sweep::SweepOptions> {
+    let c = plan.count_options(&plan.inputs.data, threads)?;
+    let randoms = plan
+        .inputs
+        .randoms
+        .clone()
+        .ok_or_else(|| Error::input("plan: [sweep] enabled = true needs [inputs] randoms"))?;
+    let f = &plan.fit;
+    Ok(crate::app::sweep::SweepOptions {
+        data: c.data,
+        randoms,
+        fiducials: crate::app::sweep::FiducialList::OmegaK {
+            base: plan.geometry.cosmology.clone(),
+            values: plan.sweep.omega_k.clone(),
+        },
+        columns: c.columns,
+        filter: c.filter,
+        binning: c.binning,
+        rr_splits: c.rr_splits,
+        regions: c.regions,
+        naive: plan.sweep.naive,
+        threads,
+        out: plan.output.join("sweep"),
+        fit: crate::fit::IsotropicOptions {
+            s_min: f.range[0],
+            s_max: f.range[1],
+            alpha_min: f.alpha_grid[0],
+            alpha_max: f.alpha_grid[1],
+            alpha_step: f.alpha_grid[2],
+        },
+        template: crate::fit::TemplateOptions {
+            sigma_nl: f.sigma_nl,
+            ..Default::default()
+        },
+        plots: f.plots,
+    })
 }
 
 fn mismatch(path: &Path, version: &str, got: &str, want: &str) -> Error {

@@ -23,6 +23,7 @@ pub struct Plan {
     pub covariance: CovariancePlan,
     pub fit: FitPlan,
     pub curvature: CurvaturePlan,
+    pub sweep: SweepPlan,
     pub run: RunPlan,
 }
 
@@ -37,6 +38,7 @@ impl Default for Plan {
             covariance: CovariancePlan::default(),
             fit: FitPlan::default(),
             curvature: CurvaturePlan::default(),
+            sweep: SweepPlan::default(),
             run: RunPlan::default(),
         }
     }
@@ -237,6 +239,30 @@ impl Default for CurvaturePlan {
     }
 }
 
+/// Fiducial sweep: the measurement repeated under fiducials that differ from
+/// `geometry.cosmology` only in Omega_k, to show that D_V/r_d does not depend on the fiducial;
+/// the same computation as `ringscale sweep --omega-k-list`. Slow (one count per fiducial).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+#[serde(deny_unknown_fields, default)]
+pub struct SweepPlan {
+    /// Run the sweep stage (default false; needs survey geometry and randoms).
+    pub enabled: bool,
+    /// Omega_k of the fiducials (default [-0.1, -0.05, 0.0, 0.05, 0.1]).
+    pub omega_k: Vec<f64>,
+    /// Also measure each curved fiducial with the radial-only mapping (default false).
+    pub naive: bool,
+}
+
+impl Default for SweepPlan {
+    fn default() -> Self {
+        SweepPlan {
+            enabled: false,
+            omega_k: vec![-0.1, -0.05, 0.0, 0.05, 0.1],
+            naive: false,
+        }
+    }
+}
+
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 #[serde(deny_unknown_fields, default)]
 pub struct RunPlan {
@@ -372,6 +398,22 @@ impl Plan {
         if self.curvature.enabled && !self.fit.enabled {
             return bad("[curvature] enabled = true needs [fit] enabled = true".into());
         }
+        if self.sweep.enabled {
+            if self.geometry.kind != "survey" {
+                return bad(
+                    "[sweep] enabled = true needs [geometry] kind = \"survey\" (RA, Dec, z)".into(),
+                );
+            }
+            if self.inputs.randoms.is_none() {
+                return bad("[sweep] enabled = true needs [inputs] randoms".into());
+            }
+            if self.sweep.omega_k.is_empty() {
+                return bad("[sweep] omega_k: give at least one value".into());
+            }
+            if let Some(v) = self.sweep.omega_k.iter().find(|v| !v.is_finite()) {
+                return bad(format!("[sweep] omega_k: value {v} is not finite"));
+            }
+        }
         self.binning()?;
         Ok(())
     }
@@ -455,6 +497,8 @@ mod tests {
         assert_eq!(p.fit.range, [50.0, 150.0]);
         assert!(!p.curvature.enabled);
         assert_eq!(p.curvature.seed, 1);
+        assert!(!p.sweep.enabled && !p.sweep.naive);
+        assert_eq!(p.sweep.omega_k, [-0.1, -0.05, 0.0, 0.05, 0.1]);
         assert!(parse_plan("", "t").is_err());
     }
 
@@ -478,6 +522,8 @@ mod tests {
             "[run]\nunits = 0",
             "[fit]\nrange = [150.0, 50.0]",
             "[fit]\nenabled = false\n[curvature]\nenabled = true",
+            "[geometry]\nkind = \"cartesian\"\n[sweep]\nenabled = true",
+            "[sweep]\nenabled = true\nomega_k = []",
             "[binning]\nedges = \"0:200\"",
         ] {
             let p = parse_plan(&format!("[inputs]\ndata = \"g.csv\"\n{t}\n"), "t").unwrap();
