@@ -87,9 +87,9 @@ pub struct IsotropicFit {
     pub options: IsotropicOptions,
 }
 
-/// Lower Cholesky factor of a symmetric matrix (row-major n x n), or None if not positive
-/// definite or numerically singular (smallest pivot^2 below 1e-13 of the largest).
-fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
+/// Lower Cholesky factor of a symmetric matrix (row-major n x n), or None if a pivot is not
+/// above `min_pivot` or the smallest pivot^2 falls below `min_ratio` of the largest.
+fn cholesky_with(a: &[f64], n: usize, min_pivot: f64, min_ratio: f64) -> Option<Vec<f64>> {
     let mut l = vec![0.0; n * n];
     let mut dmax: f64 = 0.0;
     let mut dmin = f64::INFINITY;
@@ -98,7 +98,7 @@ fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
         for k in 0..j {
             d -= l[j * n + k] * l[j * n + k];
         }
-        if !(d.is_finite() && d > 0.0) {
+        if !(d.is_finite() && d > min_pivot) {
             return None;
         }
         dmax = dmax.max(d);
@@ -113,10 +113,20 @@ fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
             l[i * n + j] = v / dj;
         }
     }
-    if dmin < 1e-13 * dmax {
+    if dmin < min_ratio * dmax {
         return None;
     }
     Some(l)
+}
+
+/// Cholesky of a covariance: positive definite and not numerically singular (1e-13).
+fn cholesky(a: &[f64], n: usize) -> Option<Vec<f64>> {
+    cholesky_with(a, n, 0.0, 1e-13)
+}
+
+/// Cholesky for the small normal-equation matrices (only positive definiteness required).
+fn cholesky_loose(a: &[f64], n: usize) -> Option<Vec<f64>> {
+    cholesky_with(a, n, 1e-300, 0.0)
 }
 
 /// Solve L L^T x = b in place.
@@ -207,30 +217,6 @@ impl Gls<'_> {
             },
         }
     }
-}
-
-/// Cholesky for the small normal-equation matrices (only positive definiteness required).
-fn cholesky_loose(a: &[f64], n: usize) -> Option<Vec<f64>> {
-    let mut l = vec![0.0; n * n];
-    for j in 0..n {
-        let mut d = a[j * n + j];
-        for k in 0..j {
-            d -= l[j * n + k] * l[j * n + k];
-        }
-        if !(d.is_finite() && d > 1e-300) {
-            return None;
-        }
-        let dj = d.sqrt();
-        l[j * n + j] = dj;
-        for i in j + 1..n {
-            let mut v = a[i * n + j];
-            for k in 0..j {
-                v -= l[i * n + k] * l[j * n + k];
-            }
-            l[i * n + j] = v / dj;
-        }
-    }
-    Some(l)
 }
 
 /// Minimum of a chi2 curve on a uniform grid: (alpha, chi2, at_edge).
