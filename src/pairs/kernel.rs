@@ -148,7 +148,7 @@ impl Pts {
 
 /// mu of pair (i, j) for metric K (only called when mu is binned).
 #[inline(always)]
-fn pair_mu<const K: u8>(a: &Pts, i: usize, b: &Pts, j: usize, q: f64, dz: f64) -> f64 {
+pub(crate) fn pair_mu<const K: u8>(a: &Pts, i: usize, b: &Pts, j: usize, q: f64, dz: f64) -> f64 {
     if K == PER {
         if q > 0.0 {
             dz.abs() / q.sqrt()

@@ -19,7 +19,7 @@
 //! identical for any thread count; sums of non-dyadic terms (w1 w2 s, w1 w2 z) can differ from a
 //! single-fiducial count in the last f64 bits of a task sum because that count groups by its own
 //! tree.
-use super::kernel::{mu_flat, pair_q, s_of_q, Binner, Geo, Pts, CLO, FLAT, OPE, PER};
+use super::kernel::{pair_mu, pair_q, s_of_q, Binner, Geo, Pts, CLO, FLAT, OPE, PER};
 use super::{check_config, permute, prepare, to_fixed, Binning, CountConfig, Metric};
 use super::{PairCounts, PointSet};
 use rayon::prelude::*;
@@ -375,21 +375,7 @@ fn add_pair<const K: u8, const MU: bool>(
         bn.s_bin_exact(q)
     };
     let im = if MU {
-        let mu = if K == PER {
-            if q > 0.0 {
-                dz.abs() / q.sqrt()
-            } else {
-                0.0
-            }
-        } else if K == FLAT {
-            mu_flat(
-                a.c[0][i], a.c[1][i], a.c[2][i], b.c[0][j], b.c[1][j], b.c[2][j],
-            )
-        } else {
-            mu_flat(
-                a.f[0][i], a.f[1][i], a.f[2][i], b.f[0][j], b.f[1][j], b.f[2][j],
-            )
-        };
+        let mu = pair_mu::<K>(a, i, b, j, q, dz);
         bn.mu_bin(mu)
     } else {
         0

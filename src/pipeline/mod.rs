@@ -748,17 +748,8 @@ pub fn fit_options(plan: &Plan) -> crate::app::fit::FitOptions {
         xi_dir: plan.output.join("xi"),
         out: plan.output.join("fit"),
         cosmology: f.cosmology.clone(),
-        fit: crate::fit::IsotropicOptions {
-            s_min: f.range[0],
-            s_max: f.range[1],
-            alpha_min: f.alpha_grid[0],
-            alpha_max: f.alpha_grid[1],
-            alpha_step: f.alpha_grid[2],
-        },
-        template: crate::fit::TemplateOptions {
-            sigma_nl: f.sigma_nl,
-            ..Default::default()
-        },
+        fit: f.isotropic_options(),
+        template: f.template_options(),
         power_table: f.power_table.clone(),
         rd_user: f.rd,
         plots: f.plots,
@@ -806,17 +797,8 @@ pub fn sweep_options(plan: &Plan, threads: usize) -> Result<crate::app::sweep::S
         naive: plan.sweep.naive,
         threads,
         out: plan.output.join("sweep"),
-        fit: crate::fit::IsotropicOptions {
-            s_min: f.range[0],
-            s_max: f.range[1],
-            alpha_min: f.alpha_grid[0],
-            alpha_max: f.alpha_grid[1],
-            alpha_step: f.alpha_grid[2],
-        },
-        template: crate::fit::TemplateOptions {
-            sigma_nl: f.sigma_nl,
-            ..Default::default()
-        },
+        fit: f.isotropic_options(),
+        template: f.template_options(),
         plots: f.plots,
     })
 }

@@ -198,6 +198,26 @@ pub struct FitPlan {
     pub plots: bool,
 }
 
+impl FitPlan {
+    /// Fit range and alpha grid as the fit module takes them.
+    pub fn isotropic_options(&self) -> crate::fit::IsotropicOptions {
+        crate::fit::IsotropicOptions {
+            s_min: self.range[0],
+            s_max: self.range[1],
+            alpha_min: self.alpha_grid[0],
+            alpha_max: self.alpha_grid[1],
+            alpha_step: self.alpha_grid[2],
+        }
+    }
+    /// Template settings: Sigma_nl from the plan, the rest at their defaults.
+    pub fn template_options(&self) -> crate::fit::TemplateOptions {
+        crate::fit::TemplateOptions {
+            sigma_nl: self.sigma_nl,
+            ..Default::default()
+        }
+    }
+}
+
 impl Default for FitPlan {
     fn default() -> Self {
         FitPlan {
