@@ -39,7 +39,7 @@ fn regroup(
 pub fn rebin_s_groups(c: &PairCounts, g: usize) -> Result<PairCounts> {
     check_shape(c, "rebin")?;
     let n_s = c.binning.n_s();
-    if g == 0 || n_s % g != 0 {
+    if g == 0 || !n_s.is_multiple_of(g) {
         return Err(Error::input(format!(
             "rebin: group size {g} must be >= 1 and divide the {n_s} separation bins"
         )));
@@ -80,7 +80,7 @@ pub fn rebin_s_edges(c: &PairCounts, edges: &[f64]) -> Result<PairCounts> {
 pub fn rebin_mu_groups(c: &PairCounts, g: usize) -> Result<PairCounts> {
     check_shape(c, "rebin")?;
     let n_mu = c.binning.n_mu;
-    if g == 0 || n_mu % g != 0 {
+    if g == 0 || !n_mu.is_multiple_of(g) {
         return Err(Error::input(format!(
             "rebin: mu group size {g} must be >= 1 and divide the {n_mu} mu bins"
         )));

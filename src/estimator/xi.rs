@@ -202,7 +202,7 @@ pub fn analytic_pair_fraction(binning: &Binning, box_size: f64) -> Result<Vec<f6
     let mut out = Vec::with_capacity(binning.n_bins());
     for w in binning.s_edges.windows(2) {
         let f = 4.0 / 3.0 * std::f64::consts::PI * (w[1].powi(3) - w[0].powi(3)) / v / n_mu as f64;
-        out.extend(std::iter::repeat(f).take(n_mu));
+        out.extend(std::iter::repeat_n(f, n_mu));
     }
     Ok(out)
 }

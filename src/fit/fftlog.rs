@@ -92,7 +92,7 @@ impl FftLog {
                 "FFTLog: k range [{k_min}, {k_max}] must satisfy 0 < k_min < k_max"
             )));
         }
-        if n < 16 || n % 2 != 0 {
+        if n < 16 || !n.is_multiple_of(2) {
             return Err(Error::input(format!(
                 "FFTLog: n = {n} must be even and >= 16"
             )));

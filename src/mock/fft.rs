@@ -29,7 +29,7 @@ pub struct Fft3 {
 
 impl Fft3 {
     pub fn new(n: usize) -> Result<Self> {
-        if n < 2 || n % 2 != 0 {
+        if n < 2 || !n.is_multiple_of(2) {
             return Err(Error::input(format!(
                 "FFT grid size n_grid = {n} must be even and at least 2"
             )));

@@ -216,7 +216,7 @@ const METHOD: &str = "lognormal (Coles & Jones 1991); P_G from ln(1 + xi_g) on t
                       Poisson sampling per cell, uniform within the cell";
 
 fn check_grid(n_grid: usize, bias: f64) -> Result<()> {
-    if !(8..=4096).contains(&n_grid) || n_grid % 2 != 0 {
+    if !(8..=4096).contains(&n_grid) || !n_grid.is_multiple_of(2) {
         return Err(Error::input(format!(
             "mock n_grid = {n_grid} must be even and in [8, 4096]"
         )));

@@ -5,14 +5,18 @@
 //! (open). `q` is a strictly increasing function of the separation s, so bins are compared in
 //! q-space against transformed edges and s itself is only evaluated for counted pairs.
 //!
-//! Two leaf kernels live side by side: `leaf_ref` (plain loops, binary-search bin) and
-//! `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that auto-vectorises, then a
-//! lookup-table bin index with one exact compare each way and a scatter of the accepted lanes only into
-//! interleaved sub-histograms), compiled for AVX-512 / AVX2 via `#[target_feature]` wrappers
-//! chosen at run time, or as portable code. Both evaluate each pair with the same floating-point
-//! expressions and add pair terms in the same order to the same sub-histogram, so they give
-//! bitwise identical results on every target.
-use super::counts::{to_fixed, PairCounts};
+//! Exactness and determinism: every counted pair's terms (w1 w2, w1 w2 s, w1 w2 (z1+z2)/2) are
+//! rounded to fixed point ONE PAIR AT A TIME (`Quant`) and summed as integers. Integer sums do
+//! not depend on the order or grouping of pairs, so any traversal (tree shape, task split,
+//! threads, shards, the one-pass fiducial sweep) gives bitwise the same totals.
+//!
+//! Kernels side by side, all bitwise equal: `leaf_ref` (plain loops, binary-search bin, i128
+//! adds), `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that
+//! auto-vectorises, then a table bin lookup with one exact compare), compiled for AVX2 or as
+//! portable code, and the AVX-512 kernel in `simd512` (flat and periodic metrics without mu
+//! bins: gathers for the bin lookup and per-lane integer histograms updated by scatter, so no
+//! two lanes ever touch the same slot). The instruction set is chosen at run time.
+use super::counts::{PairCounts, FRAC_BITS};
 
 pub(crate) const FLAT: u8 = 0;
 pub(crate) const PER: u8 = 1;
@@ -174,12 +178,16 @@ pub(crate) struct Binner {
     pub n_s: usize,
     pub n_mu: usize,
     pub nb: usize,
-    /// Lookup table over [qe[0], qe[n_s]): cell -> bin containing the cell centre. Cells are at
-    /// most a quarter of the narrowest bin, so a cell (even widened by a rounding slip of one
-    /// cell on either side) touches at most one edge and one compare each way corrects it.
-    table: Vec<u32>,
-    inv_h: f64,
-    last_cell: f64,
+    /// Lookup table over [qe[0], qe[n_s]) in cells of width h <= (narrowest bin)/4. For cell c,
+    /// `base[c]` is the bin holding p_c = qe[0] + (c - 1.5) h (bin 0 below qe[0]) and
+    /// `edge[c] = qe[base[c] + 1]`. Any q whose computed cell is c lies in [p_c, p_c + 3.5 h)
+    /// (the cell formula may slip by one cell either way through rounding); that window is
+    /// narrower than every bin, so it holds at most one edge and the bin of q is exactly
+    /// `base[c] + (q >= edge[c])`.
+    pub base: Vec<i64>,
+    pub edge: Vec<f64>,
+    pub inv_h: f64,
+    pub last_cell: f64,
     /// False when the table would be too large (very uneven bins); kernels then use binary search.
     pub table_ok: bool,
 }
@@ -200,7 +208,8 @@ impl Binner {
             n_s,
             n_mu,
             nb: n_s * n_mu,
-            table: Vec::new(),
+            base: Vec::new(),
+            edge: Vec::new(),
             inv_h: 0.0,
             last_cell: 0.0,
             table_ok: false,
@@ -210,12 +219,12 @@ impl Binner {
             let h = range / m as f64;
             b.inv_h = m as f64 / range;
             b.last_cell = (m - 1) as f64;
-            b.table = (0..m)
-                .map(|c| {
-                    let mid = b.qe[0] + (c as f64 + 0.5) * h;
-                    b.s_bin_exact(mid.min(b.qe[n_s]).max(b.qe[0])).min(n_s - 1) as u32
-                })
-                .collect();
+            for c in 0..m {
+                let p = b.qe[0] + (c as f64 - 1.5) * h;
+                let k = if p < b.qe[0] { 0 } else { b.s_bin_exact(p) };
+                b.base.push(k as i64);
+                b.edge.push(b.qe[k + 1]);
+            }
             b.table_ok = true;
         }
         b
@@ -240,18 +249,15 @@ impl Binner {
         ((q - self.qe[0]) * self.inv_h).max(0.0).min(self.last_cell)
     }
 
-    /// Separation bin from the table cell plus one exact compare each way (equals
-    /// `s_bin_exact`). Requires `cell` from `Binner::cell` and qlo <= q < qhi.
+    /// Separation bin from the table cell and one exact compare (equals `s_bin_exact`).
+    /// Requires `cell` from `Binner::cell`, a valid table, and qlo <= q < qhi.
     #[inline(always)]
     pub fn s_bin_from_cell(&self, cell: f64, q: f64) -> usize {
         let t = cell as usize;
-        debug_assert!(t < self.table.len());
-        // SAFETY: cell is clamped to [0, table.len() - 1] (NaN casts to 0); table entries are
-        // <= n_s - 1, so b + 1 <= n_s and, after the upward step, b <= n_s, all within qe.
+        debug_assert!(t < self.base.len());
+        // SAFETY: cell is clamped to [0, table length - 1] (NaN casts to 0).
         unsafe {
-            let b = *self.table.get_unchecked(t) as usize;
-            let b = b + (q >= *self.qe.get_unchecked(b + 1)) as usize;
-            b.wrapping_sub((q < *self.qe.get_unchecked(b)) as usize)
+            *self.base.get_unchecked(t) as usize + (q >= *self.edge.get_unchecked(t)) as usize
         }
     }
 
@@ -261,45 +267,131 @@ impl Binner {
     }
 }
 
-/// Number of interleaved sub-histograms: pair (i, j) adds into sub-histogram j mod SUB. This
-/// breaks the add-latency chains when consecutive pairs hit the same bin, and because the
-/// assignment depends only on j (not on the lane width) both kernels sum identically.
-pub(crate) const SUB: usize = 8;
+/// Per-pair fixed-point quantisation: a term x becomes round_ties_even(x 2^f) as i64 (the
+/// default rounding of the SIMD conversion, so every kernel rounds alike). Each column (w1 w2,
+/// w1 w2 s, w1 w2 z) has its own f, the largest (at most `FRAC_BITS`) that keeps its largest
+/// possible term below 2^51, so an i64 lane sum holds >= 2^11 terms and the resolution is
+/// about 2^-51 of that largest term. Totals are kept with `FRAC_BITS` fractional bits.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub(crate) struct Quant {
+    /// Fractional bits and scales 2^f of the w, s and z columns.
+    pub frac: [u32; 3],
+    pub scale: [f64; 3],
+    /// Pair tests a SIMD lane histogram may absorb before it must be flushed to i128.
+    pub lane_limit: u64,
+}
 
-/// Per-task f64 accumulators. A task (a top-level node pair) is summed in a fixed pair order and
-/// then converted to fixed point once, so totals do not depend on how tasks are spread over
-/// threads or shards. Each bin holds [count, w1w2, w1w2 s, w1w2 (z1+z2)/2]; counts are exact in
-/// f64 (< 2^53 per task). Slot `nb` of every sub-histogram is a spare slot (no longer written by the fast kernel).
+impl Quant {
+    /// Quantisation for columns whose terms are bounded by `bounds` in absolute value.
+    pub fn for_bounds(bounds: [f64; 3]) -> crate::Result<Self> {
+        let mut frac = [0u32; 3];
+        let mut scale = [0.0f64; 3];
+        let mut lane_limit = u64::MAX;
+        for k in 0..3 {
+            // tiny bounds (zero weights or redshifts) change nothing: f is capped anyway
+            let b = bounds[k].max(1e-300);
+            if !b.is_finite() || b >= 2f64.powi(40) {
+                return Err(crate::Error::input(format!(
+                    "pair counts: weights too large (largest pair term {b:e}); rescale the \
+                     weights (xi does not depend on their overall scale)"
+                )));
+            }
+            let room = (51.0 - b.log2()).floor().min(FRAC_BITS as f64);
+            frac[k] = room as u32;
+            scale[k] = (1u64 << frac[k]) as f64;
+            let lim = (2f64.powi(62) / (b * scale[k])).floor();
+            lane_limit = lane_limit.min(lim.min(u64::MAX as f64) as u64);
+        }
+        Ok(Quant {
+            frac,
+            scale,
+            lane_limit,
+        })
+    }
+
+    /// Quantisation for a count of `a` (and `b`) with largest separation edge `s_max`:
+    /// bounds w_max^2, w_max^2 s_max and w_max^2 z_max.
+    pub fn for_data(a: &Pts, b: Option<&Pts>, s_max: f64) -> crate::Result<Self> {
+        let mut w_max = 0.0f64;
+        let mut z_max = 0.0f64;
+        for p in std::iter::once(a).chain(b) {
+            w_max = p.w.iter().fold(w_max, |m, &w| m.max(w.abs()));
+            z_max = p.z.iter().fold(z_max, |m, &z| m.max(z.abs()));
+        }
+        let w2 = w_max * w_max;
+        Quant::for_bounds([w2, w2 * s_max, w2 * z_max])
+    }
+
+    #[inline(always)]
+    pub fn fix_w(&self, x: f64) -> i64 {
+        (x * self.scale[0]).round_ties_even() as i64
+    }
+    #[inline(always)]
+    pub fn fix_s(&self, x: f64) -> i64 {
+        (x * self.scale[1]).round_ties_even() as i64
+    }
+    #[inline(always)]
+    pub fn fix_z(&self, x: f64) -> i64 {
+        (x * self.scale[2]).round_ties_even() as i64
+    }
+}
+
+/// Lanes of the SIMD lane histograms (slot `bin * LANES + lane`).
+pub(crate) const LANES: usize = 8;
+
+/// Per-task integer accumulators. Scalar kernels add each pair's quantised terms straight into
+/// i128 bin totals; the AVX-512 kernel adds into per-lane i64 histograms that are folded into
+/// the totals before they could overflow (`Quant::lane_limit`). Totals are in units of
+/// 2^-f per column and are shifted to `FRAC_BITS` when flushed into `PairCounts`.
 pub(crate) struct Acc {
-    nb: usize,
-    nreg: usize,
-    h: Vec<[f64; 4]>,
-    rb: Vec<f64>,
-    ro: Vec<f64>,
+    pub nb: usize,
+    pub nreg: usize,
+    pub q: Quant,
+    n: Vec<u64>,
+    w: Vec<i128>,
+    s: Vec<i128>,
+    z: Vec<i128>,
+    rb: Vec<i128>,
+    ro: Vec<i128>,
     rdirty: Vec<bool>,
     rlist: Vec<usize>,
+    /// Lane histograms [count, w1w2, w1w2 s, w1w2 z] (SIMD kernel only).
+    pub ln: Vec<i64>,
+    pub lw: Vec<i64>,
+    pub ls: Vec<i64>,
+    pub lz: Vec<i64>,
+    pending: u64,
     /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
-    /// w1w2 = 1 exactly, so its per-bin sum equals the (exact) count and is filled in at flush.
-    unit_w: bool,
+    /// w1w2 = 1 exactly (quantised: 2^f), so its per-bin sum is the count times 2^f.
+    pub unit_w: bool,
 }
 
 impl Acc {
-    pub fn new(nb: usize, nreg: usize) -> Self {
+    pub fn new(nb: usize, nreg: usize, q: Quant) -> Self {
         Acc {
             nb,
             nreg,
-            h: vec![[0.0; 4]; SUB * (nb + 1)],
-            rb: vec![0.0; nb * nreg],
-            ro: vec![0.0; nb * nreg],
+            q,
+            n: vec![0; nb],
+            w: vec![0; nb],
+            s: vec![0; nb],
+            z: vec![0; nb],
+            rb: vec![0; nb * nreg],
+            ro: vec![0; nb * nreg],
             rdirty: vec![false; nb * nreg],
             rlist: Vec::new(),
+            ln: vec![0; (nb + 1) * LANES],
+            lw: vec![0; (nb + 1) * LANES],
+            ls: vec![0; (nb + 1) * LANES],
+            lz: vec![0; (nb + 1) * LANES],
+            pending: 0,
             unit_w: false,
         }
     }
 
     /// Bytes held by one accumulator (for the memory estimate).
     pub fn bytes(nb: usize, nreg: usize) -> u64 {
-        (SUB * (nb + 1) * 32 + nb * nreg * 25) as u64
+        (nb * (8 + 3 * 16) + (nb + 1) * 4 * 8 * LANES + nb * nreg * 33) as u64
     }
 
     #[inline(always)]
@@ -310,61 +402,92 @@ impl Acc {
         }
     }
 
-    /// Add one pair's terms to bin `bin` (or the trash bin `nb`) of sub-histogram `j % SUB`.
+    /// Add one pair's terms (quantised here) to bin `bin`.
     #[inline(always)]
-    fn add(&mut self, j: usize, bin: usize, ww: f64, wsv: f64, wzv: f64) {
-        let h = &mut self.h[(j % SUB) * (self.nb + 1) + bin];
-        h[0] += 1.0;
-        h[1] += ww;
-        h[2] += wsv;
-        h[3] += wzv;
+    pub fn add(&mut self, bin: usize, ww: f64, wsv: f64, wzv: f64) {
+        let q = self.q;
+        self.n[bin] += 1;
+        self.w[bin] += q.fix_w(ww) as i128;
+        self.s[bin] += q.fix_s(wsv) as i128;
+        self.z[bin] += q.fix_z(wzv) as i128;
     }
 
+    /// Add one pair's quantised weight to the region sums.
     #[inline(always)]
-    fn add_regions(&mut self, bin: usize, ww: f64, r1: u32, r2: u32) {
+    pub fn add_regions_fixed(&mut self, bin: usize, tw: i64, r1: u32, r2: u32) {
         let s1 = r1 as usize * self.nb + bin;
         if r1 == r2 {
             self.touch(s1);
-            self.rb[s1] += ww;
+            self.rb[s1] += tw as i128;
         } else {
             let s2 = r2 as usize * self.nb + bin;
             self.touch(s1);
             self.touch(s2);
-            self.ro[s1] += ww;
-            self.ro[s2] += ww;
+            self.ro[s1] += tw as i128;
+            self.ro[s2] += tw as i128;
         }
     }
 
-    /// Convert the task's sums to fixed point, add them to `out`, and reset.
-    pub fn flush(&mut self, out: &mut PairCounts) {
-        let st = self.nb + 1;
+    /// Make room for `tests` more pair tests in the lane histograms; false when a single
+    /// call could overflow them (the caller then uses a scalar kernel).
+    #[inline]
+    pub fn reserve_lanes(&mut self, tests: u64) -> bool {
+        if tests > self.q.lane_limit {
+            return false;
+        }
+        if self.pending + tests > self.q.lane_limit {
+            self.flush_lanes();
+        }
+        self.pending += tests;
+        true
+    }
+
+    /// Fold the lane histograms into the i128 totals.
+    pub fn flush_lanes(&mut self) {
+        if self.pending == 0 {
+            return;
+        }
         for b in 0..self.nb {
-            let mut t = [0.0f64; 4];
-            for k in 0..SUB {
-                let h = &mut self.h[k * st + b];
-                for (x, y) in t.iter_mut().zip(h.iter()) {
-                    *x += *y;
-                }
-                *h = [0.0; 4];
-            }
-            if self.unit_w {
-                t[1] = t[0];
-            }
-            if t[0] != 0.0 {
-                out.npairs[b] += t[0] as u64;
-                out.wpairs[b] += to_fixed(t[1]);
-                out.ws[b] += to_fixed(t[2]);
-                out.wz[b] += to_fixed(t[3]);
+            for l in 0..LANES {
+                let k = b * LANES + l;
+                self.n[b] += self.ln[k] as u64;
+                self.w[b] += self.lw[k] as i128;
+                self.s[b] += self.ls[k] as i128;
+                self.z[b] += self.lz[k] as i128;
             }
         }
-        for k in 0..SUB {
-            self.h[k * st + self.nb] = [0.0; 4]; // trash bin
+        self.ln.fill(0);
+        self.lw.fill(0);
+        self.ls.fill(0);
+        self.lz.fill(0);
+        self.pending = 0;
+    }
+
+    /// Add the task's sums to `out` (converted to `FRAC_BITS` fractional bits) and reset.
+    pub fn flush(&mut self, out: &mut PairCounts) {
+        self.flush_lanes();
+        let f = self.q.frac;
+        let sh = [FRAC_BITS - f[0], FRAC_BITS - f[1], FRAC_BITS - f[2]];
+        for b in 0..self.nb {
+            if self.unit_w {
+                self.w[b] = (self.n[b] as i128) << f[0];
+            }
+            if self.n[b] != 0 {
+                out.npairs[b] += self.n[b];
+                out.wpairs[b] += self.w[b] << sh[0];
+                out.ws[b] += self.s[b] << sh[1];
+                out.wz[b] += self.z[b] << sh[2];
+            }
+            self.n[b] = 0;
+            self.w[b] = 0;
+            self.s[b] = 0;
+            self.z[b] = 0;
         }
         for &s in &self.rlist {
-            out.region_both[s] += to_fixed(self.rb[s]);
-            out.region_one[s] += to_fixed(self.ro[s]);
-            self.rb[s] = 0.0;
-            self.ro[s] = 0.0;
+            out.region_both[s] += self.rb[s] << sh[0];
+            out.region_one[s] += self.ro[s] << sh[0];
+            self.rb[s] = 0;
+            self.ro[s] = 0;
             self.rdirty[s] = false;
         }
         self.rlist.clear();
@@ -388,9 +511,10 @@ fn record<const K: u8>(
     let s = s_of_q::<K>(q, radius);
     let ww = a.w[i] * b.w[j];
     let zz = 0.5 * (a.z[i] + b.z[j]);
-    acc.add(j, bin, ww, ww * s, ww * zz);
+    acc.add(bin, ww, ww * s, ww * zz);
     if acc.nreg > 0 {
-        acc.add_regions(bin, ww, a.reg[i], b.reg[j]);
+        let tw = acc.q.fix_w(ww);
+        acc.add_regions_fixed(bin, tw, a.reg[i], b.reg[j]);
     }
 }
 
@@ -435,7 +559,7 @@ pub(crate) enum KernelKind {
 fn leaf_tally(_: &Pts, _: &Pts, lp: LeafPair, _: &Geo, _: &Binner, acc: &mut Acc) {
     let (na, nb) = (lp.a1 - lp.a0, lp.b1 - lp.b0);
     let tests = if lp.same { na * (na - 1) / 2 } else { na * nb };
-    acc.add(0, 0, tests as f64, 0.0, 0.0);
+    acc.add(0, tests as f64, 0.0, 0.0);
 }
 
 /// A leaf pair: index ranges into `a` and `b`; `same` means a == b (auto count of one leaf with
@@ -447,6 +571,27 @@ pub(crate) struct LeafPair {
     pub b0: usize,
     pub b1: usize,
     pub same: bool,
+    /// Bounding box of the b points and a q threshold: the SIMD kernel skips a row i whose
+    /// point-to-box lower bound on q is >= `q_cut` (`f64::INFINITY`: never).
+    pub b_lo: [f64; 4],
+    pub b_hi: [f64; 4],
+    pub q_cut: f64,
+}
+
+impl LeafPair {
+    /// A leaf pair without row pruning.
+    pub fn plain(a0: usize, a1: usize, b0: usize, b1: usize, same: bool) -> Self {
+        LeafPair {
+            a0,
+            a1,
+            b0,
+            b1,
+            same,
+            b_lo: [f64::NEG_INFINITY; 4],
+            b_hi: [f64::INFINITY; 4],
+            q_cut: f64::INFINITY,
+        }
+    }
 }
 
 /// Plain reference kernel.
@@ -467,9 +612,9 @@ pub(crate) fn leaf_ref<const K: u8, const MU: bool>(
 }
 
 /// Fast kernel body, generic over the lane count L. Lane values are computed with the same
-/// expressions as `ref_pair` (no fused operations: Rust never contracts a*b+c), the bin index is
-/// branch-free (table + exact corrections, invalid lanes sent to the sentinel `nb`), and counted
-/// pairs are added in ascending j order, so the result is bitwise that of `leaf_ref`.
+/// expressions as `ref_pair` (no fused operations: Rust never contracts a*b+c), then the
+/// accepted lanes are binned through the table (one exact compare) and their quantised terms
+/// added; integer sums make the result bitwise that of `leaf_ref`.
 #[inline(always)]
 fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
@@ -482,7 +627,7 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
     if !bn.table_ok {
         return leaf_ref::<K, MU>(a, b, lp, g, bn, acc);
     }
-    let (qlo, qhi, n_mu, nb) = (bn.qlo(), bn.qhi(), bn.n_mu, bn.nb);
+    let (qlo, qhi, n_mu) = (bn.qlo(), bn.qhi(), bn.n_mu);
     let (l, hl) = (g.box_l, g.half_l);
     if UW {
         acc.unit_w = true;
@@ -496,98 +641,41 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
             let by: &[f64; L] = b.c[1][j..j + L].try_into().unwrap();
             let bz: &[f64; L] = b.c[2][j..j + L].try_into().unwrap();
             let bt: &[f64; L] = b.c[3][j..j + L].try_into().unwrap();
-            let bw: &[f64; L] = b.w[j..j + L].try_into().unwrap();
-            let bzz: &[f64; L] = b.z[j..j + L].try_into().unwrap();
             let mut qs = [0.0f64; L];
             let mut cells = [0.0f64; L];
-            let mut ims = [0usize; L];
-            let mut ss = [0.0f64; L];
-            let mut wws = [0.0f64; L];
-            let mut wzs = [0.0f64; L];
-            let mut ok = [false; L];
+            let mut dzs = [0.0f64; L];
+            let mut mask = 0u32;
             // pass 1: pure lane arithmetic (vectorisable: no table loads, no branches)
             for k in 0..L {
                 let (q, dz) = pair_q::<K>(ax, ay, az, at, bx[k], by[k], bz[k], bt[k], l, hl);
-                ok[k] = q >= qlo && q < qhi;
+                mask |= ((q >= qlo && q < qhi) as u32) << k;
                 cells[k] = bn.cell(q);
-                if MU {
-                    let mu = if K == PER {
-                        if q > 0.0 {
-                            dz.abs() / q.sqrt()
-                        } else {
-                            0.0
-                        }
-                    } else if K == FLAT {
-                        mu_flat(ax, ay, az, bx[k], by[k], bz[k])
-                    } else {
-                        mu_flat(
-                            a.f[0][i],
-                            a.f[1][i],
-                            a.f[2][i],
-                            b.f[0][j + k],
-                            b.f[1][j + k],
-                            b.f[2][j + k],
-                        )
-                    };
-                    ims[k] = bn.mu_bin(mu);
-                }
                 qs[k] = q;
-                if K == FLAT || K == PER {
-                    ss[k] = s_of_q::<K>(q, 0.0);
-                }
+                dzs[k] = dz;
+            }
+            // pass 2: the accepted lanes only
+            while mask != 0 {
+                let k = mask.trailing_zeros() as usize;
+                mask &= mask - 1;
+                let q = qs[k];
+                let im = if MU {
+                    bn.mu_bin(pair_mu::<K>(a, i, b, j + k, q, dzs[k]))
+                } else {
+                    0
+                };
+                let bin = bn.s_bin_from_cell(cells[k], q) * n_mu + im;
+                let s = s_of_q::<K>(q, g.radius);
                 // unit weights: ww = 1 and ww * x = x exactly; zero redshifts: the z term is 0
-                let ww = if UW { 1.0 } else { aw * bw[k] };
-                wws[k] = ww;
-                if !ZZ {
-                    wzs[k] = if UW {
-                        0.5 * (az_ + bzz[k])
-                    } else {
-                        ww * (0.5 * (az_ + bzz[k]))
-                    };
+                let ww = if UW { 1.0 } else { aw * b.w[j + k] };
+                let zz = if ZZ { 0.0 } else { 0.5 * (az_ + b.z[j + k]) };
+                if UW {
+                    acc.add(bin, 1.0, s, zz);
+                } else {
+                    acc.add(bin, ww, ww * s, ww * zz);
                 }
-            }
-            // pass 2: bin lookup (table + one exact compare each way) and scatter in j order.
-            // Only accepted lanes are visited (all of them straight through when every lane is
-            // accepted, else the set bits of the mask in ascending order), so the terms reach
-            // each sub-histogram in the same order as in `leaf_ref`.
-            let mut mask = 0u32;
-            for (k, &o) in ok.iter().enumerate() {
-                mask |= (o as u32) << k;
-            }
-            macro_rules! lane {
-                ($k:expr) => {{
-                    let k = $k;
-                    let bin = bn
-                        .s_bin_from_cell(cells[k], qs[k])
-                        .wrapping_mul(n_mu)
-                        .wrapping_add(ims[k]);
-                    let s = if K == FLAT || K == PER {
-                        ss[k]
-                    } else {
-                        s_of_q::<K>(qs[k], g.radius)
-                    };
-                    let h = &mut acc.h[((j + k) % SUB) * (nb + 1) + bin];
-                    h[0] += 1.0;
-                    if !UW {
-                        h[1] += wws[k];
-                    }
-                    h[2] += if UW { s } else { wws[k] * s };
-                    if !ZZ {
-                        h[3] += wzs[k];
-                    }
-                    if acc.nreg > 0 {
-                        acc.add_regions(bin, wws[k], a.reg[i], b.reg[j + k]);
-                    }
-                }};
-            }
-            if mask == (1u32 << L) - 1 {
-                for k in 0..L {
-                    lane!(k);
-                }
-            } else {
-                while mask != 0 {
-                    lane!(mask.trailing_zeros() as usize);
-                    mask &= mask - 1;
+                if acc.nreg > 0 {
+                    let tw = acc.q.fix_w(ww);
+                    acc.add_regions_fixed(bin, tw, a.reg[i], b.reg[j + k]);
                 }
             }
             j += L;
@@ -600,7 +688,7 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f")]
+#[target_feature(enable = "avx512f,avx512dq")]
 unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
@@ -609,7 +697,13 @@ unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: boo
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
+    if !MU && bn.table_ok && K == FLAT {
+        super::simd512::leaf::<false, UW, ZZ>(a, b, lp, g, bn, acc)
+    } else if !MU && bn.table_ok && K == PER {
+        super::simd512::leaf::<true, UW, ZZ>(a, b, lp, g, bn, acc)
+    } else {
+        leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
+    }
 }
 
 #[cfg(target_arch = "x86_64")]
@@ -650,7 +744,9 @@ impl Simd {
     pub fn detect() -> Self {
         #[cfg(target_arch = "x86_64")]
         {
-            if std::arch::is_x86_feature_detected!("avx512f") {
+            if std::arch::is_x86_feature_detected!("avx512f")
+                && std::arch::is_x86_feature_detected!("avx512dq")
+            {
                 return Simd::Avx512;
             }
             if std::arch::is_x86_feature_detected!("avx2") {
@@ -667,7 +763,7 @@ pub(crate) type LeafFn = fn(&Pts, &Pts, LeafPair, &Geo, &Binner, &mut Acc);
 fn pick_fast<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(simd: Simd) -> LeafFn {
     match simd {
         #[cfg(target_arch = "x86_64")]
-        // SAFETY: only chosen after `is_x86_feature_detected!("avx512f")` returned true.
+        // SAFETY: only chosen after AVX-512F and AVX-512DQ were detected.
         Simd::Avx512 => {
             |a, b, lp, g, bn, acc| unsafe { leaf_avx512::<K, MU, UW, ZZ>(a, b, lp, g, bn, acc) }
         }

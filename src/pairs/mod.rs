@@ -7,14 +7,15 @@
 //! separable over node sums, so every surviving pair goes through a leaf kernel and all sums are
 //! exact per pair.
 //!
-//! Determinism: the traversal is split into a fixed list of top-level node pairs ("tasks")
-//! that depends only on the data and binning. Each task is summed in f64 in a fixed order and
-//! converted to fixed point once (`to_fixed`); integer totals are order-independent, so any
-//! thread count and any sharding (`shard = (k, N)` takes tasks k, k+N, ...) give bitwise the same
-//! merged result.
+//! Determinism: every pair's terms are quantised to fixed point on their own and summed as
+//! integers (see `kernel`), so totals do not depend on grouping or order: any thread count, any
+//! sharding (`shard = (k, N)` takes tasks k, k+N, ... of a fixed list of top-level node pairs)
+//! and the one-pass fiducial sweep give bitwise the same result.
 mod counts;
 mod kernel;
 mod regions;
+#[cfg(target_arch = "x86_64")]
+mod simd512;
 mod sweep;
 mod tree;
 
@@ -28,7 +29,8 @@ pub use sweep::{
 };
 
 use kernel::{
-    Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Simd, CLO, FLAT, OPE, PER,
+    Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Quant, Simd, CLO, FLAT, OPE,
+    PER,
 };
 use rayon::prelude::*;
 use tree::{node_bounds, Tree};
@@ -503,11 +505,10 @@ impl Walker<'_> {
                 let a = &self.ta.nodes[t.a as usize];
                 let b = &self.tb.nodes[t.b as usize];
                 let lp = LeafPair {
-                    a0: a.start,
-                    a1: a.end,
-                    b0: b.start,
-                    b1: b.end,
-                    same: t.same,
+                    b_lo: b.lo,
+                    b_hi: b.hi,
+                    q_cut: if t.same { f64::INFINITY } else { self.q_hi_pad },
+                    ..LeafPair::plain(a.start, a.end, b.start, b.end, t.same)
                 };
                 (self.leaf)(self.pa, self.pb, lp, &self.geo, self.bn, acc);
             } else {
@@ -614,12 +615,13 @@ pub(crate) fn count_impl(
     let mine: Vec<Task> = tasks.iter().skip(k).step_by(n).copied().collect();
     let nb = bn.nb;
     let nreg = cfg.n_regions;
+    let quant = Quant::for_data(&pa, tb_pb.as_ref().map(|(_, p)| p), cfg.binning.s_max())?;
     let zeros = || PairCounts::zeros(cfg.binning.clone(), nreg);
     let pool = build_pool(cfg.threads)?;
     let out = pool.install(|| {
         mine.par_iter()
             .fold(
-                || (Acc::new(nb, nreg), zeros(), Vec::new()),
+                || (Acc::new(nb, nreg, quant), zeros(), Vec::new()),
                 |(mut acc, mut pc, mut stack), &t| {
                     w.walk(t, &mut acc, &mut stack);
                     acc.flush(&mut pc);
@@ -649,17 +651,18 @@ fn brute_impl(a: &PointSet, b: Option<&PointSet>, cfg: &CountConfig) -> crate::R
         cfg.binning.n_mu > 1,
         Simd::Portable,
     );
-    let mut acc = Acc::new(bn.nb, cfg.n_regions);
+    let quant = Quant::for_data(&pa, pb.as_ref(), cfg.binning.s_max())?;
+    let mut acc = Acc::new(bn.nb, cfg.n_regions, quant);
     let mut out = PairCounts::zeros(cfg.binning.clone(), cfg.n_regions);
-    // one row of pairs at a time keeps the f64 partial sums short
+    // one row of pairs per kernel call (the integer sums do not care how pairs are grouped)
     for i in 0..pa.len() {
-        let lp = LeafPair {
-            a0: i,
-            a1: i + 1,
-            b0: if pb.is_some() { 0 } else { i + 1 },
-            b1: pbr.len(),
-            same: false,
-        };
+        let lp = LeafPair::plain(
+            i,
+            i + 1,
+            if pb.is_some() { 0 } else { i + 1 },
+            pbr.len(),
+            false,
+        );
         leaf(&pa, pbr, lp, &geo, &bn, &mut acc);
         acc.flush(&mut out);
     }

@@ -11,16 +11,16 @@
 //! conservative for every fiducial, and a leaf pair runs the per-pair kernel only for the
 //! variants alive there.
 //!
-//! Per pair and variant the kernel evaluates exactly the same floating-point expressions as the
-//! single-fiducial engine (`pair_q` on the same embedding coordinates from `prepare`, the same
-//! q-space bin edges, mu and s formulas), so bin membership, pair numbers and every single pair
-//! term are bitwise those of `count_auto` / `count_cross`. Sums are grouped per top-level node
-//! pair of the shared tree (f64 in a fixed order, then fixed point), so results are bitwise
-//! identical for any thread count; sums of non-dyadic terms (w1 w2 s, w1 w2 z) can differ from a
-//! single-fiducial count in the last f64 bits of a task sum because that count groups by its own
-//! tree.
-use super::kernel::{pair_mu, pair_q, s_of_q, Binner, Geo, Pts, CLO, FLAT, OPE, PER};
-use super::{check_config, permute, prepare, to_fixed, Binning, CountConfig, Metric};
+//! Per leaf pair and variant it runs the single-fiducial engine's own leaf kernel on that
+//! variant's embedding coordinates (from `prepare`), with the same q-space bin edges and the
+//! same per-pair fixed-point quantisation, so bin membership, pair numbers and every summed term
+//! are bitwise those of `count_auto` / `count_cross`; integer sums make the totals independent
+//! of the different tree, so each variant's counts equal a separate count bit for bit.
+use super::kernel::{
+    self, Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Quant, Simd, CLO, OPE,
+    PER,
+};
+use super::{check_config, permute, prepare, Binning, CountConfig, Metric};
 use super::{PairCounts, PointSet};
 use rayon::prelude::*;
 
@@ -269,230 +269,6 @@ fn box_bounds(
     (qmin, qmax)
 }
 
-/// Per-task, per-variant f64 sums: [count, w1w2, w1w2 s, w1w2 (z1+z2)/2] per bin plus region
-/// sums; flushed to fixed point once per task.
-struct VAcc {
-    nb: usize,
-    nreg: usize,
-    h: Vec<[f64; 4]>,
-    rb: Vec<f64>,
-    ro: Vec<f64>,
-    rdirty: Vec<bool>,
-    rlist: Vec<usize>,
-}
-
-impl VAcc {
-    fn new(nb: usize, nreg: usize) -> Self {
-        VAcc {
-            nb,
-            nreg,
-            h: vec![[0.0; 4]; nb],
-            rb: vec![0.0; nb * nreg],
-            ro: vec![0.0; nb * nreg],
-            rdirty: vec![false; nb * nreg],
-            rlist: Vec::new(),
-        }
-    }
-
-    #[inline(always)]
-    fn touch(&mut self, slot: usize) {
-        if !self.rdirty[slot] {
-            self.rdirty[slot] = true;
-            self.rlist.push(slot);
-        }
-    }
-
-    #[inline(always)]
-    fn add(&mut self, bin: usize, ww: f64, wsv: f64, wzv: f64, r1: u32, r2: u32) {
-        let h = &mut self.h[bin];
-        h[0] += 1.0;
-        h[1] += ww;
-        h[2] += wsv;
-        h[3] += wzv;
-        if self.nreg > 0 {
-            let s1 = r1 as usize * self.nb + bin;
-            if r1 == r2 {
-                self.touch(s1);
-                self.rb[s1] += ww;
-            } else {
-                let s2 = r2 as usize * self.nb + bin;
-                self.touch(s1);
-                self.touch(s2);
-                self.ro[s1] += ww;
-                self.ro[s2] += ww;
-            }
-        }
-    }
-
-    fn flush(&mut self, out: &mut PairCounts) {
-        for (b, h) in self.h.iter_mut().enumerate() {
-            if h[0] != 0.0 {
-                out.npairs[b] += h[0] as u64;
-                out.wpairs[b] += to_fixed(h[1]);
-                out.ws[b] += to_fixed(h[2]);
-                out.wz[b] += to_fixed(h[3]);
-            }
-            *h = [0.0; 4];
-        }
-        for &s in &self.rlist {
-            out.region_both[s] += to_fixed(self.rb[s]);
-            out.region_one[s] += to_fixed(self.ro[s]);
-            self.rb[s] = 0.0;
-            self.ro[s] = 0.0;
-            self.rdirty[s] = false;
-        }
-        self.rlist.clear();
-    }
-}
-
-#[derive(Clone, Copy)]
-struct Leaf {
-    a0: usize,
-    a1: usize,
-    b0: usize,
-    b1: usize,
-    same: bool,
-}
-
-/// Add a pair already known to lie in [q_lo, q_hi): bin, mu, s and weights as in the
-/// single-fiducial kernels.
-#[allow(clippy::too_many_arguments)]
-#[inline(always)]
-fn add_pair<const K: u8, const MU: bool>(
-    a: &Pts,
-    i: usize,
-    b: &Pts,
-    j: usize,
-    q: f64,
-    dz: f64,
-    g: &Geo,
-    bn: &Binner,
-    acc: &mut VAcc,
-) {
-    let is = if bn.table_ok {
-        bn.s_bin_from_cell(bn.cell(q), q)
-    } else {
-        bn.s_bin_exact(q)
-    };
-    let im = if MU {
-        let mu = pair_mu::<K>(a, i, b, j, q, dz);
-        bn.mu_bin(mu)
-    } else {
-        0
-    };
-    let s = s_of_q::<K>(q, g.radius);
-    let ww = a.w[i] * b.w[j];
-    let zz = 0.5 * (a.z[i] + b.z[j]);
-    let (r1, r2) = if acc.nreg > 0 {
-        (a.reg[i], b.reg[j])
-    } else {
-        (0, 0)
-    };
-    acc.add(is * bn.n_mu + im, ww, ww * s, ww * zz, r1, r2);
-}
-
-/// Leaf kernel for one variant: a branch-free pass computing q for L lanes (vectorisable), then
-/// the in-range lanes are binned in ascending j order.
-#[inline(always)]
-fn leaf_body<const L: usize, const K: u8, const MU: bool>(
-    a: &Pts,
-    b: &Pts,
-    lp: Leaf,
-    g: &Geo,
-    bn: &Binner,
-    acc: &mut VAcc,
-) {
-    let (qlo, qhi) = (bn.qlo(), bn.qhi());
-    let (l, hl) = (g.box_l, g.half_l);
-    for i in lp.a0..lp.a1 {
-        let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
-        let mut j = if lp.same { i + 1 } else { lp.b0 };
-        while j + L <= lp.b1 {
-            let bx: &[f64; L] = b.c[0][j..j + L].try_into().unwrap();
-            let by: &[f64; L] = b.c[1][j..j + L].try_into().unwrap();
-            let bz: &[f64; L] = b.c[2][j..j + L].try_into().unwrap();
-            let bt: &[f64; L] = b.c[3][j..j + L].try_into().unwrap();
-            let mut qs = [0.0f64; L];
-            let mut dzs = [0.0f64; L];
-            let mut any = false;
-            for k in 0..L {
-                let (q, dz) = pair_q::<K>(ax, ay, az, at, bx[k], by[k], bz[k], bt[k], l, hl);
-                qs[k] = q;
-                dzs[k] = dz;
-                any |= q >= qlo && q < qhi;
-            }
-            if any {
-                for k in 0..L {
-                    let q = qs[k];
-                    if q >= qlo && q < qhi {
-                        add_pair::<K, MU>(a, i, b, j + k, q, dzs[k], g, bn, acc);
-                    }
-                }
-            }
-            j += L;
-        }
-        while j < lp.b1 {
-            let (q, dz) = pair_q::<K>(
-                ax, ay, az, at, b.c[0][j], b.c[1][j], b.c[2][j], b.c[3][j], l, hl,
-            );
-            if q >= qlo && q < qhi {
-                add_pair::<K, MU>(a, i, b, j, q, dz, g, bn, acc);
-            }
-            j += 1;
-        }
-    }
-}
-
-type SLeafFn = fn(&Pts, &Pts, Leaf, &Geo, &Binner, &mut VAcc);
-
-#[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx2")]
-unsafe fn leaf_avx2<const K: u8, const MU: bool>(
-    a: &Pts,
-    b: &Pts,
-    lp: Leaf,
-    g: &Geo,
-    bn: &Binner,
-    acc: &mut VAcc,
-) {
-    leaf_body::<4, K, MU>(a, b, lp, g, bn, acc)
-}
-
-fn leaf_portable<const K: u8, const MU: bool>(
-    a: &Pts,
-    b: &Pts,
-    lp: Leaf,
-    g: &Geo,
-    bn: &Binner,
-    acc: &mut VAcc,
-) {
-    leaf_body::<4, K, MU>(a, b, lp, g, bn, acc)
-}
-
-fn pick_k<const K: u8, const MU: bool>() -> SLeafFn {
-    #[cfg(target_arch = "x86_64")]
-    {
-        if std::arch::is_x86_feature_detected!("avx2") {
-            // SAFETY: chosen only when the CPU reports AVX2.
-            return |a, b, lp, g, bn, acc| unsafe { leaf_avx2::<K, MU>(a, b, lp, g, bn, acc) };
-        }
-    }
-    leaf_portable::<K, MU>
-}
-
-fn pick(kind: u8, mu: bool) -> SLeafFn {
-    match (kind, mu) {
-        (FLAT, false) => pick_k::<FLAT, false>(),
-        (FLAT, true) => pick_k::<FLAT, true>(),
-        (PER, false) => pick_k::<PER, false>(),
-        (PER, true) => pick_k::<PER, true>(),
-        (CLO, false) => pick_k::<CLO, false>(),
-        (CLO, true) => pick_k::<CLO, true>(),
-        (_, false) => pick_k::<OPE, false>(),
-        (_, true) => pick_k::<OPE, true>(),
-    }
-}
-
 /// One variant's prepared data.
 struct Var {
     geo: Geo,
@@ -501,7 +277,8 @@ struct Var {
     pb: Option<Pts>,
     q_lo_pad: f64,
     q_hi_pad: f64,
-    leaf: SLeafFn,
+    quant: Quant,
+    leaf: LeafFn,
 }
 
 #[derive(Clone, Copy)]
@@ -603,7 +380,7 @@ impl SWalker<'_> {
         cur
     }
 
-    fn walk(&self, t: STask, accs: &mut [VAcc], stack: &mut Vec<STask>) {
+    fn walk(&self, t: STask, accs: &mut [Acc], stack: &mut Vec<STask>) {
         stack.clear();
         stack.push(t);
         while let Some(t) = stack.pop() {
@@ -615,13 +392,7 @@ impl SWalker<'_> {
             if self.is_leaf_pair(&t) {
                 let a = self.ta.nodes[t.a as usize];
                 let b = self.tb.nodes[t.b as usize];
-                let lp = Leaf {
-                    a0: a.start,
-                    a1: a.end,
-                    b0: b.start,
-                    b1: b.end,
-                    same: t.same,
-                };
+                let lp = LeafPair::plain(a.start, a.end, b.start, b.end, t.same);
                 let mut m = alive;
                 while m != 0 {
                     let k = m.trailing_zeros() as usize;
@@ -695,17 +466,20 @@ fn sweep_impl(
             let slack = 1e-12 * scale;
             let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
             let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
-            Var {
-                leaf: pick(geo.kind, mu),
+            let quant = Quant::for_data(&pa, pb.as_ref(), cfg.binning.s_max())?;
+            let flags = DataFlags::of(&pa, pb.as_ref().unwrap_or(&pa));
+            Ok(Var {
+                leaf: kernel::pick_for(KernelKind::Fast, geo.kind, mu, Simd::detect(), flags),
+                quant,
                 geo,
                 bn,
                 pa,
                 pb,
                 q_lo_pad,
                 q_hi_pad,
-            }
+            })
         })
-        .collect();
+        .collect::<crate::Result<_>>()?;
     let w = SWalker {
         ta: &ta,
         tb,
@@ -725,7 +499,7 @@ fn sweep_impl(
             .map(|_| PairCounts::zeros(cfg.binning.clone(), nreg))
             .collect()
     };
-    let new_accs = || -> Vec<VAcc> { (0..nv).map(|_| VAcc::new(nb, nreg)).collect() };
+    let new_accs = || -> Vec<Acc> { vars.iter().map(|v| Acc::new(nb, nreg, v.quant)).collect() };
     let pool = super::build_pool(cfg.threads)?;
     let out = pool.install(|| {
         tasks
@@ -810,27 +584,11 @@ mod tests {
         ]
     }
 
-    fn close(a: &[i128], b: &[i128], what: &str) {
-        for (x, y) in a.iter().zip(b) {
-            let (x, y) = (super::super::from_fixed(*x), super::super::from_fixed(*y));
-            assert!(
-                (x - y).abs() <= 1e-12 * x.abs().max(y.abs()) + 1e-9,
-                "{what}: {x} vs {y}"
-            );
-        }
-    }
-
     fn assert_same(sw: &[PairCounts], rf: &[PairCounts]) {
         assert_eq!(sw.len(), rf.len());
         for (s, r) in sw.iter().zip(rf) {
-            // bin membership and dyadic-weight sums: bit for bit
-            assert_eq!(s.npairs, r.npairs);
-            assert_eq!(s.wpairs, r.wpairs);
-            assert_eq!(s.region_both, r.region_both);
-            assert_eq!(s.region_one, r.region_one);
-            // s- and z-weighted sums: same pair terms, grouped by a different tree
-            close(&s.ws, &r.ws, "ws");
-            close(&s.wz, &r.wz, "wz");
+            // every column bit for bit, although the sweep walks a different tree
+            assert_eq!(s, r);
             assert!(s.npairs.iter().sum::<u64>() > 1000, "test must count pairs");
         }
     }

@@ -70,7 +70,10 @@ fn build_rec(
         let dim = (0..3)
             .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
             .unwrap_or(0);
-        let mid = (start + end) / 2;
+        // split near the middle at a multiple of 8 points from the start where possible, so
+        // leaves fill whole 8-lane SIMD steps
+        let half = (end - start) / 2;
+        let mid = start + if half >= 8 { (half + 4) / 8 * 8 } else { half };
         perm[start..end]
             .select_nth_unstable_by(mid - start, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
         let l = build_rec(c, perm, start, mid, nodes);
