@@ -70,8 +70,12 @@ pub struct BenchRow {
     pub speedup: f64,
     /// Peak resident memory of the process during this workload (VmHWM, bytes).
     pub peak_bytes: Option<u64>,
+    /// Resident memory just before the workload started (the program itself and what earlier
+    /// workloads left mapped), not counted against the workload.
+    pub baseline_bytes: Option<u64>,
     /// Bytes of positions + weights of the inputs plus the result histograms.
     pub payload_bytes: u64,
+    /// (peak - baseline) / payload: the memory the workload itself needed per payload byte.
     pub memory_ratio: Option<f64>,
     /// Single-thread baselines: wall seconds and our speed-up over them (their time / our
     /// 1-thread time, same pairs).
@@ -100,12 +104,17 @@ fn edges() -> Vec<f64> {
         .collect()
 }
 
-/// Peak resident set (VmHWM) in bytes; None where /proc is unavailable.
-fn peak_rss() -> Option<u64> {
+/// A `/proc/self/status` memory field (VmHWM, VmRSS) in bytes; None where unavailable.
+fn status_bytes(field: &str) -> Option<u64> {
     let s = std::fs::read_to_string("/proc/self/status").ok()?;
-    let line = s.lines().find(|l| l.starts_with("VmHWM:"))?;
+    let line = s.lines().find(|l| l.starts_with(field))?;
     let kb: u64 = line.split_whitespace().nth(1)?.parse().ok()?;
     Some(kb * 1024)
+}
+
+/// Peak resident set (VmHWM) in bytes.
+fn peak_rss() -> Option<u64> {
+    status_bytes("VmHWM:")
 }
 
 /// CPU seconds (user + system) used by the process so far, from /proc/self/stat (clock ticks of
@@ -310,6 +319,7 @@ fn scipy_auto(
 /// Time `f` with 1 and with n threads, resetting the peak-memory mark first.
 fn both<F: Fn(usize) -> Result<u64>>(n: usize, f: F) -> Result<Timing> {
     reset_peak();
+    let base = status_bytes("VmRSS:");
     let c0 = cpu_seconds();
     let t = Instant::now();
     let pairs1 = f(1)?;
@@ -329,6 +339,7 @@ fn both<F: Fn(usize) -> Result<u64>>(n: usize, f: F) -> Result<Timing> {
         tn,
         cpu1,
         peak: peak_rss(),
+        base,
     })
 }
 
@@ -339,6 +350,7 @@ struct Timing {
     tn: f64,
     cpu1: Option<f64>,
     peak: Option<u64>,
+    base: Option<u64>,
 }
 
 fn row(name: &str, ns: Vec<usize>, m: Timing, threads: usize) -> BenchRow {
@@ -348,6 +360,7 @@ fn row(name: &str, ns: Vec<usize>, m: Timing, threads: usize) -> BenchRow {
         tn,
         cpu1,
         peak,
+        base,
     } = m;
     let pay = payload(&ns);
     BenchRow {
@@ -363,8 +376,9 @@ fn row(name: &str, ns: Vec<usize>, m: Timing, threads: usize) -> BenchRow {
         pairs_per_cpu_s_1t: cpu1.filter(|&c| c > 0.0).map(|c| pairs as f64 / c),
         speedup: t1 / tn,
         peak_bytes: peak,
+        baseline_bytes: base,
         payload_bytes: pay,
-        memory_ratio: peak.map(|p| p as f64 / pay as f64),
+        memory_ratio: peak.map(|p| p.saturating_sub(base.unwrap_or(0)) as f64 / pay as f64),
         kiddo_s: None,
         vs_kiddo: None,
         scipy_s: None,
@@ -450,7 +464,9 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
             };
             let run1 = |t: usize| -> Result<u64> {
                 let p = load(&file, &cart, None)?;
-                Ok(total_pairs(&pairs::count_auto(&p, &config(metric, t)?)?))
+                let cfg = config(metric, t)?;
+                let ip = pairs::Indexed::new(p, "box", &cfg)?;
+                Ok(total_pairs(&pairs::count_auto_indexed(&ip, &cfg)?))
             };
             let m = both(threads, run1)?;
             let name = format!(
@@ -499,9 +515,12 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         let g = load(&gfile, &sky, Some(&table))?;
         let r = load(&rfile, &sky, Some(&table))?;
         let cfg = config(metric, t)?;
-        let dd = pairs::count_auto(&g, &cfg)?;
-        let dr = pairs::count_cross(&g, &r, &cfg)?;
-        let rr = pairs::count_auto(&r, &cfg)?;
+        // each catalogue indexed once, shared by the three counts
+        let g = pairs::Indexed::new(g, "galaxies", &cfg)?;
+        let r = pairs::Indexed::new(r, "randoms", &cfg)?;
+        let dd = pairs::count_auto_indexed(&g, &cfg)?;
+        let dr = pairs::count_cross_indexed(&g, &r, &cfg)?;
+        let rr = pairs::count_auto_indexed(&r, &cfg)?;
         Ok(total_pairs(&dd) + total_pairs(&dr) + total_pairs(&rr))
     };
     let m = both(threads, full)?;
@@ -516,7 +535,9 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
     // RR alone (for the baselines) and split RR
     let rr_full = |t: usize| -> Result<u64> {
         let r = load(&rfile, &sky, Some(&table))?;
-        Ok(total_pairs(&pairs::count_auto(&r, &config(metric, t)?)?))
+        let cfg = config(metric, t)?;
+        let r = pairs::Indexed::new(r, "randoms", &cfg)?;
+        Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
     };
     let m = both(threads, rr_full)?;
     let mut rrow = row("survey RR", vec![nr], m, threads);
@@ -544,7 +565,8 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
                 redshift: pick(&r.redshift),
                 region: Vec::new(),
             };
-            tot += total_pairs(&pairs::count_auto(&s, &cfg)?);
+            let s = pairs::Indexed::new(s, "random subset", &cfg)?;
+            tot += total_pairs(&pairs::count_auto_indexed(&s, &cfg)?);
         }
         Ok((tot, st.elapsed().as_secs_f64()))
     };

@@ -134,11 +134,13 @@ pub(crate) fn mu_flat(ax: f64, ay: f64, az: f64, bx: f64, by: f64, bz: f64) -> f
 #[derive(Debug, Clone, Default)]
 pub(crate) struct Pts {
     /// Embedding coordinates: c[0..3] spatial (flat positions, wrapped box positions, or the
-    /// curved embedding R S(chi/R) u), c[3] = t (0 for flat metrics).
+    /// curved embedding R S(chi/R) u), c[3] = t (curved metrics only; empty, i.e. all 0, for
+    /// flat and periodic ones, which never read it).
     pub c: [Vec<f64>; 4],
     /// Flat Cartesian positions for mu in curved metrics (empty otherwise).
     pub f: [Vec<f64>; 3],
     pub w: Vec<f64>,
+    /// Redshifts; empty when all are 0 (boxes).
     pub z: Vec<f64>,
     /// Region labels (empty when no regions are used).
     pub reg: Vec<u32>,
@@ -147,6 +149,24 @@ pub(crate) struct Pts {
 impl Pts {
     pub fn len(&self) -> usize {
         self.w.len()
+    }
+    /// Redshift of point i (0 when none are stored).
+    #[inline(always)]
+    pub fn z_at(&self, i: usize) -> f64 {
+        if self.z.is_empty() {
+            0.0
+        } else {
+            self.z[i]
+        }
+    }
+    /// Embedding t of point i for metric K (0 for flat metrics, which store none).
+    #[inline(always)]
+    pub fn t_at<const K: u8>(&self, i: usize) -> f64 {
+        if K == CLO || K == OPE {
+            self.c[3][i]
+        } else {
+            0.0
+        }
     }
 }
 
@@ -190,6 +210,10 @@ pub(crate) struct Binner {
     pub last_cell: f64,
     /// False when the table would be too large (very uneven bins); kernels then use binary search.
     pub table_ok: bool,
+    /// Linear edges in a flat metric, (s0, ds, 1/ds): edge k is exactly `s0 + k ds` (as f64
+    /// arithmetic) and q-edge k exactly its square, so SIMD code can rebuild any edge in
+    /// registers instead of loading it (see `Binner::detect_linear`).
+    pub lin: Option<(f64, f64, f64)>,
 }
 
 const MAX_CELLS: usize = 1 << 20;
@@ -213,6 +237,7 @@ impl Binner {
             inv_h: 0.0,
             last_cell: 0.0,
             table_ok: false,
+            lin: None,
         };
         if cells.is_finite() && cells >= 1.0 && (cells as usize) <= MAX_CELLS {
             let m = cells as usize;
@@ -228,6 +253,20 @@ impl Binner {
             b.table_ok = true;
         }
         b
+    }
+
+    /// Record that the separation edges are linear with q = s^2 (flat and periodic metrics)
+    /// when every edge is reproduced bit for bit by `s0 + k ds` and every q-edge by its square.
+    pub fn detect_linear(&mut self, s_edges: &[f64]) {
+        let n = self.n_s;
+        let (s0, ds) = (s_edges[0], (s_edges[n] - s_edges[0]) / n as f64);
+        let exact = (0..=n).all(|k| {
+            let e = s0 + (k as f64) * ds;
+            e == s_edges[k] && e * e == self.qe[k]
+        });
+        if exact && ds > 0.0 {
+            self.lin = Some((s0, ds, 1.0 / ds));
+        }
     }
 
     pub fn qlo(&self) -> f64 {
@@ -296,7 +335,7 @@ impl Quant {
                      weights (xi does not depend on their overall scale)"
                 )));
             }
-            let room = (51.0 - b.log2()).floor().min(FRAC_BITS as f64);
+            let room = (47.0 - b.log2()).floor().min(FRAC_BITS as f64);
             frac[k] = room as u32;
             scale[k] = (1u64 << frac[k]) as f64;
             let lim = (2f64.powi(62) / (b * scale[k])).floor();
@@ -361,6 +400,9 @@ pub(crate) struct Acc {
     pub ls: Vec<i64>,
     pub lz: Vec<i64>,
     pending: u64,
+    /// Lane columns w and z written since the last lane flush.
+    pub lanes_w: bool,
+    pub lanes_z: bool,
     /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
     /// w1w2 = 1 exactly (quantised: 2^f), so its per-bin sum is the count times 2^f.
     pub unit_w: bool,
@@ -385,6 +427,8 @@ impl Acc {
             ls: vec![0; (nb + 1) * LANES],
             lz: vec![0; (nb + 1) * LANES],
             pending: 0,
+            lanes_w: false,
+            lanes_z: false,
             unit_w: false,
         }
     }
@@ -442,24 +486,36 @@ impl Acc {
         true
     }
 
-    /// Fold the lane histograms into the i128 totals.
+    /// Fold the lane histograms into the i128 totals (only the columns in use: the unit-weight
+    /// and zero-redshift kernels never write w and z lanes).
     pub fn flush_lanes(&mut self) {
         if self.pending == 0 {
             return;
         }
-        for b in 0..self.nb {
-            for l in 0..LANES {
-                let k = b * LANES + l;
-                self.n[b] += self.ln[k] as u64;
-                self.w[b] += self.lw[k] as i128;
-                self.s[b] += self.ls[k] as i128;
-                self.z[b] += self.lz[k] as i128;
+        fn fold<T: Copy + Default + std::ops::AddAssign>(
+            tot: &mut [T],
+            lanes: &mut [i64],
+            conv: impl Fn(i64) -> T,
+        ) {
+            for (b, t) in tot.iter_mut().enumerate() {
+                let mut sum = T::default();
+                for v in &mut lanes[b * LANES..(b + 1) * LANES] {
+                    sum += conv(*v);
+                    *v = 0;
+                }
+                *t += sum;
             }
+            // the spare bin (rejected lanes) is cleared, never counted
+            lanes[tot.len() * LANES..].fill(0);
         }
-        self.ln.fill(0);
-        self.lw.fill(0);
-        self.ls.fill(0);
-        self.lz.fill(0);
+        fold(&mut self.n, &mut self.ln, |v| v as u64);
+        fold(&mut self.s, &mut self.ls, |v| v as i128);
+        if self.lanes_w {
+            fold(&mut self.w, &mut self.lw, |v| v as i128);
+        }
+        if self.lanes_z {
+            fold(&mut self.z, &mut self.lz, |v| v as i128);
+        }
         self.pending = 0;
     }
 
@@ -510,7 +566,7 @@ fn record<const K: u8>(
 ) {
     let s = s_of_q::<K>(q, radius);
     let ww = a.w[i] * b.w[j];
-    let zz = 0.5 * (a.z[i] + b.z[j]);
+    let zz = 0.5 * (a.z_at(i) + b.z_at(j));
     acc.add(bin, ww, ww * s, ww * zz);
     if acc.nreg > 0 {
         let tw = acc.q.fix_w(ww);
@@ -531,8 +587,16 @@ pub(crate) fn ref_pair<const K: u8, const MU: bool>(
     acc: &mut Acc,
 ) {
     let (q, dz) = pair_q::<K>(
-        a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i], b.c[0][j], b.c[1][j], b.c[2][j], b.c[3][j],
-        g.box_l, g.half_l,
+        a.c[0][i],
+        a.c[1][i],
+        a.c[2][i],
+        a.t_at::<K>(i),
+        b.c[0][j],
+        b.c[1][j],
+        b.c[2][j],
+        b.t_at::<K>(j),
+        g.box_l,
+        g.half_l,
     );
     if q >= bn.qlo() && q < bn.qhi() {
         let is = bn.s_bin_exact(q);
@@ -633,14 +697,18 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
         acc.unit_w = true;
     }
     for i in lp.a0..lp.a1 {
-        let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.c[3][i]);
-        let (aw, az_) = (a.w[i], a.z[i]);
+        let (ax, ay, az, at) = (a.c[0][i], a.c[1][i], a.c[2][i], a.t_at::<K>(i));
+        let (aw, az_) = (a.w[i], if ZZ { 0.0 } else { a.z[i] });
         let mut j = if lp.same { i + 1 } else { lp.b0 };
         while j + L <= lp.b1 {
             let bx: &[f64; L] = b.c[0][j..j + L].try_into().unwrap();
             let by: &[f64; L] = b.c[1][j..j + L].try_into().unwrap();
             let bz: &[f64; L] = b.c[2][j..j + L].try_into().unwrap();
-            let bt: &[f64; L] = b.c[3][j..j + L].try_into().unwrap();
+            let bt: [f64; L] = if K == CLO || K == OPE {
+                b.c[3][j..j + L].try_into().unwrap()
+            } else {
+                [0.0; L]
+            };
             let mut qs = [0.0f64; L];
             let mut cells = [0.0f64; L];
             let mut dzs = [0.0f64; L];
@@ -697,10 +765,20 @@ unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: boo
     bn: &Binner,
     acc: &mut Acc,
 ) {
+    use super::simd512::leaf;
+    let lin = bn.lin.is_some();
     if !MU && bn.table_ok && K == FLAT {
-        super::simd512::leaf::<false, UW, ZZ>(a, b, lp, g, bn, acc)
+        if lin {
+            leaf::<false, true, UW, ZZ>(a, b, lp, g, bn, acc)
+        } else {
+            leaf::<false, false, UW, ZZ>(a, b, lp, g, bn, acc)
+        }
     } else if !MU && bn.table_ok && K == PER {
-        super::simd512::leaf::<true, UW, ZZ>(a, b, lp, g, bn, acc)
+        if lin {
+            leaf::<true, true, UW, ZZ>(a, b, lp, g, bn, acc)
+        } else {
+            leaf::<true, false, UW, ZZ>(a, b, lp, g, bn, acc)
+        }
     } else {
         leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
     }
@@ -809,7 +887,7 @@ impl DataFlags {
     pub fn of(a: &Pts, b: &Pts) -> Self {
         DataFlags {
             unit_w: a.w.iter().chain(&b.w).all(|&w| w == 1.0),
-            zero_z: a.z.iter().chain(&b.z).all(|&z| z == 0.0),
+            zero_z: a.z.iter().chain(&b.z).all(|&z| z == 0.0), // empty: all 0
         }
     }
 }

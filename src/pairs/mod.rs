@@ -228,11 +228,16 @@ fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
             "binning: separation edges too close to be told apart in this metric",
         ));
     }
-    Ok((geo, Binner::new(qe, b.n_mu)))
+    let mut bn = Binner::new(qe, b.n_mu);
+    if geo.kind == FLAT || geo.kind == PER {
+        bn.detect_linear(&b.s_edges);
+    }
+    Ok((geo, bn))
 }
 
-/// Validate one catalogue and convert it to kernel layout (original order).
-fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Result<Pts> {
+/// Validate one catalogue and convert it to kernel layout (original order). Takes the columns
+/// by value and moves them where the layout allows (flat: all of them), so no copy is made.
+fn prepare(p: PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Result<Pts> {
     let n = p.x.len();
     if n == 0 {
         return Err(crate::Error::input(format!("{name}: catalogue is empty")));
@@ -286,38 +291,44 @@ fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Res
                 cfg.n_regions
             )));
         }
-        reg = p.region.clone();
     }
-    let z = if p.redshift.is_empty() {
-        vec![0.0; n]
+    let PointSet {
+        x,
+        y,
+        z: pz,
+        w,
+        redshift,
+        region,
+    } = p;
+    if cfg.n_regions > 0 {
+        reg = region;
+    }
+    // all-zero redshifts (boxes) are not stored
+    let z = if redshift.iter().all(|&z| z == 0.0) {
+        Vec::new()
     } else {
-        p.redshift.clone()
+        redshift
     };
     let mut pts = Pts {
-        w: p.w.clone(),
+        w,
         z,
         reg,
         ..Default::default()
     };
     match geo.kind {
         FLAT => {
-            pts.c = [p.x.clone(), p.y.clone(), p.z.clone(), vec![0.0; n]];
+            pts.c = [x, y, pz, Vec::new()];
         }
         PER => {
             let l = geo.box_l;
-            let wrap = |v: &Vec<f64>| -> Vec<f64> {
-                v.iter()
-                    .map(|&x| {
-                        let r = x.rem_euclid(l);
-                        if r >= l {
-                            0.0
-                        } else {
-                            r
-                        }
-                    })
-                    .collect()
+            let wrap = |mut v: Vec<f64>| -> Vec<f64> {
+                for x in v.iter_mut() {
+                    let r = x.rem_euclid(l);
+                    *x = if r >= l { 0.0 } else { r };
+                }
+                v
             };
-            pts.c = [wrap(&p.x), wrap(&p.y), wrap(&p.z), vec![0.0; n]];
+            pts.c = [wrap(x), wrap(y), wrap(pz), Vec::new()];
         }
         _ => {
             // Curved: chi = |x|, u = x / chi. Closed: X = R sin(chi/R) u, t = 2R sin^2(chi/2R)
@@ -328,7 +339,7 @@ fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Res
             let mut c = [vec![0.0; n], vec![0.0; n], vec![0.0; n], vec![0.0; n]];
             #[allow(clippy::needless_range_loop)]
             for i in 0..n {
-                let chi = (p.x[i] * p.x[i] + p.y[i] * p.y[i] + p.z[i] * p.z[i]).sqrt();
+                let chi = (x[i] * x[i] + y[i] * y[i] + pz[i] * pz[i]).sqrt();
                 if closed && chi >= std::f64::consts::PI * r {
                     return Err(crate::Error::input(format!(
                         "{name}: row {i}: radial distance {chi} is beyond pi R = {} of the closed metric",
@@ -341,39 +352,40 @@ fn prepare(p: &PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Res
                     ((chi / r).sinh(), (chi / (2.0 * r)).sinh())
                 };
                 let f = if chi > 0.0 { r * sc / chi } else { 1.0 };
-                c[0][i] = p.x[i] * f;
-                c[1][i] = p.y[i] * f;
-                c[2][i] = p.z[i] * f;
+                c[0][i] = x[i] * f;
+                c[1][i] = y[i] * f;
+                c[2][i] = pz[i] * f;
                 c[3][i] = 2.0 * r * h * h;
             }
             pts.c = c;
             if cfg.binning.n_mu > 1 {
-                pts.f = [p.x.clone(), p.y.clone(), p.z.clone()];
+                pts.f = [x, y, pz];
             }
         }
     }
     Ok(pts)
 }
 
-/// Reorder points into tree order.
-fn permute(p: &Pts, perm: &[usize]) -> Pts {
-    let g = |v: &Vec<f64>| -> Vec<f64> {
+/// Reorder points into tree order, one column at a time (the peak holds one extra column).
+fn permute(p: Pts, perm: &[usize]) -> Pts {
+    fn g<T: Copy>(v: Vec<T>, perm: &[usize]) -> Vec<T> {
         if v.is_empty() {
-            Vec::new()
+            v
         } else {
             perm.iter().map(|&i| v[i]).collect()
         }
-    };
+    }
+    let Pts { c, f, w, z, reg } = p;
+    let [c0, c1, c2, c3] = c;
+    let (c0, c1, c2, c3) = (g(c0, perm), g(c1, perm), g(c2, perm), g(c3, perm));
+    let [f0, f1, f2] = f;
+    let (f0, f1, f2) = (g(f0, perm), g(f1, perm), g(f2, perm));
     Pts {
-        c: [g(&p.c[0]), g(&p.c[1]), g(&p.c[2]), g(&p.c[3])],
-        f: [g(&p.f[0]), g(&p.f[1]), g(&p.f[2])],
-        w: g(&p.w),
-        z: g(&p.z),
-        reg: if p.reg.is_empty() {
-            Vec::new()
-        } else {
-            perm.iter().map(|&i| p.reg[i]).collect()
-        },
+        c: [c0, c1, c2, c3],
+        f: [f0, f1, f2],
+        w: g(w, perm),
+        z: g(z, perm),
+        reg: g(reg, perm),
     }
 }
 
@@ -545,6 +557,70 @@ fn add_counts(dst: &mut PairCounts, src: &PairCounts) {
     }
 }
 
+/// A catalogue validated, converted to kernel layout and indexed by its KD-tree, ready to be
+/// counted any number of times (DD and DR share the data tree; DR and RR the random tree).
+/// Built from a `PointSet` taken by value, whose columns it reuses: the peak memory of a count
+/// is then the positions and weights once, plus the tree, one column of scratch during the
+/// reordering, and the histograms.
+pub struct Indexed {
+    pts: Pts,
+    tree: Tree,
+    metric: Metric,
+    n_regions: usize,
+    mu_coords: bool,
+}
+
+impl Indexed {
+    /// Validate and index `p` for counts with `cfg`'s metric, region count and mu binning.
+    pub fn new(p: PointSet, name: &str, cfg: &CountConfig) -> crate::Result<Self> {
+        let (geo, _) = check_config(cfg)?;
+        let pts = prepare(p, name, cfg, &geo)?;
+        let (tree, perm) = tree::build(&pts.c);
+        let pts = permute(pts, &perm);
+        Ok(Indexed {
+            pts,
+            tree,
+            metric: cfg.metric,
+            n_regions: cfg.n_regions,
+            mu_coords: cfg.binning.n_mu > 1,
+        })
+    }
+
+    pub fn len(&self) -> usize {
+        self.pts.len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.pts.len() == 0
+    }
+
+    fn check(&self, cfg: &CountConfig) -> crate::Result<()> {
+        if self.metric != cfg.metric
+            || self.n_regions != cfg.n_regions
+            || (cfg.binning.n_mu > 1 && !self.mu_coords)
+        {
+            return Err(crate::Error::input(
+                "indexed catalogue was prepared for another metric, region count or mu binning",
+            ));
+        }
+        Ok(())
+    }
+}
+
+/// `count_auto` on an indexed catalogue.
+pub fn count_auto_indexed(a: &Indexed, cfg: &CountConfig) -> crate::Result<PairCounts> {
+    count_indexed_impl(a, None, cfg, KernelKind::Fast)
+}
+
+/// `count_cross` on indexed catalogues.
+pub fn count_cross_indexed(
+    a: &Indexed,
+    b: &Indexed,
+    cfg: &CountConfig,
+) -> crate::Result<PairCounts> {
+    count_indexed_impl(a, Some(b), cfg, KernelKind::Fast)
+}
+
 /// Shared implementation of `count_auto` / `count_cross` with a chosen leaf kernel.
 pub(crate) fn count_impl(
     a: &PointSet,
@@ -552,31 +628,34 @@ pub(crate) fn count_impl(
     cfg: &CountConfig,
     kind: KernelKind,
 ) -> crate::Result<PairCounts> {
-    let (geo, bn) = check_config(cfg)?;
-    let pa0 = prepare(
-        a,
-        if b.is_some() {
-            "catalogue A"
-        } else {
-            "catalogue"
-        },
-        cfg,
-        &geo,
-    )?;
-    let pb0 = match b {
-        Some(b) => Some(prepare(b, "catalogue B", cfg, &geo)?),
+    let name_a = if b.is_some() {
+        "catalogue A"
+    } else {
+        "catalogue"
+    };
+    let ia = Indexed::new(a.clone(), name_a, cfg)?;
+    let ib = match b {
+        Some(b) => Some(Indexed::new(b.clone(), "catalogue B", cfg)?),
         None => None,
     };
-    let (ta, perm_a) = tree::build(&pa0.c);
-    let pa = permute(&pa0, &perm_a);
-    drop(pa0);
-    let tb_pb = pb0.map(|p| {
-        let (t, perm) = tree::build(&p.c);
-        (t, permute(&p, &perm))
-    });
-    let (tb, pb) = match &tb_pb {
-        Some((t, p)) => (t, p),
-        None => (&ta, &pa),
+    count_indexed_impl(&ia, ib.as_ref(), cfg, kind)
+}
+
+fn count_indexed_impl(
+    ia: &Indexed,
+    ib: Option<&Indexed>,
+    cfg: &CountConfig,
+    kind: KernelKind,
+) -> crate::Result<PairCounts> {
+    let (geo, bn) = check_config(cfg)?;
+    ia.check(cfg)?;
+    if let Some(ib) = ib {
+        ib.check(cfg)?;
+    }
+    let (ta, pa) = (&ia.tree, &ia.pts);
+    let (tb, pb) = match ib {
+        Some(ib) => (&ib.tree, &ib.pts),
+        None => (ta, pa),
     };
     // Padding of the pruning thresholds: a relative 1e-9 plus 1e-12 of the coordinate scale
     // absorbs any rounding difference between node bounds and pair values.
@@ -589,8 +668,8 @@ pub(crate) fn count_impl(
     let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
     let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
     let w = Walker {
-        ta: &ta,
-        pa: &pa,
+        ta,
+        pa,
         tb,
         pb,
         geo,
@@ -600,7 +679,7 @@ pub(crate) fn count_impl(
             geo.kind,
             cfg.binning.n_mu > 1,
             Simd::detect(),
-            DataFlags::of(&pa, pb),
+            DataFlags::of(pa, pb),
         ),
         q_hi_pad,
         q_lo_pad,
@@ -608,14 +687,14 @@ pub(crate) fn count_impl(
     let root = Task {
         a: 0,
         b: 0,
-        same: b.is_none(),
+        same: ib.is_none(),
     };
     let tasks = w.tasks(root);
     let (k, n) = cfg.shard;
     let mine: Vec<Task> = tasks.iter().skip(k).step_by(n).copied().collect();
     let nb = bn.nb;
     let nreg = cfg.n_regions;
-    let quant = Quant::for_data(&pa, tb_pb.as_ref().map(|(_, p)| p), cfg.binning.s_max())?;
+    let quant = Quant::for_data(pa, ib.map(|b| &b.pts), cfg.binning.s_max())?;
     let zeros = || PairCounts::zeros(cfg.binning.clone(), nreg);
     let pool = build_pool(cfg.threads)?;
     let out = pool.install(|| {
@@ -639,9 +718,9 @@ pub(crate) fn count_impl(
 
 fn brute_impl(a: &PointSet, b: Option<&PointSet>, cfg: &CountConfig) -> crate::Result<PairCounts> {
     let (geo, bn) = check_config(cfg)?;
-    let pa = prepare(a, "catalogue A", cfg, &geo)?;
+    let pa = prepare(a.clone(), "catalogue A", cfg, &geo)?;
     let pb = match b {
-        Some(b) => Some(prepare(b, "catalogue B", cfg, &geo)?),
+        Some(b) => Some(prepare(b.clone(), "catalogue B", cfg, &geo)?),
         None => None,
     };
     let pbr = pb.as_ref().unwrap_or(&pa);

@@ -14,14 +14,15 @@ use super::kernel::{ref_pair, Acc, Binner, Geo, LeafPair, Pts, FLAT, LANES, PER}
 use super::tree::{node_bounds, Node};
 use std::arch::x86_64::*;
 
-/// One leaf pair. PERIODIC selects the minimum-image metric; UW / ZZ drop the weight and
+/// One leaf pair. PERIODIC selects the minimum-image metric; LIN bins through edges rebuilt in
+/// registers (`Binner::lin`, linear edges) instead of the table; UW / ZZ drop the weight and
 /// redshift terms (unit weights, zero redshifts).
 ///
 /// # Safety
 /// The CPU must support AVX-512F and AVX-512DQ; `bn.table_ok` must hold; `acc` must have been
 /// built for `bn.nb` bins.
 #[target_feature(enable = "avx512f,avx512dq")]
-pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
+pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -52,6 +53,8 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
     if UW {
         acc.unit_w = true;
     }
+    acc.lanes_w |= !UW;
+    acc.lanes_z |= !ZZ;
     let nreg = acc.nreg;
     let qlo = _mm512_set1_pd(bn.qlo());
     let qhi = _mm512_set1_pd(bn.qhi());
@@ -76,6 +79,16 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
         acc.lz.as_mut_ptr(),
     );
     let trash = bn.nb;
+    let (s0, ds, inv_ds) = bn.lin.unwrap_or((0.0, 1.0, 1.0));
+    let (s0v, dsv, inv_dsv) = (
+        _mm512_set1_pd(s0),
+        _mm512_set1_pd(ds),
+        _mm512_set1_pd(inv_ds),
+    );
+    let top = _mm512_set1_pd((bn.n_s - 1) as f64);
+    let onef = _mm512_set1_pd(1.0);
+    let one = _mm512_set1_epi64(1);
+    let trash_v = _mm512_set1_epi64(bn.nb as i64);
     let mut cells = [0i64; LANES];
     let mut qs = [0f64; LANES];
     let mut tss = [0i64; LANES];
@@ -113,7 +126,7 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
         let ay = _mm512_set1_pd(a.c[1][i]);
         let az = _mm512_set1_pd(a.c[2][i]);
         let aw = _mm512_set1_pd(a.w[i]);
-        let azz = _mm512_set1_pd(a.z[i]);
+        let azz = _mm512_set1_pd(if ZZ { 0.0 } else { a.z[i] });
         let mut j = if lp.same { i + 1 } else { lp.b0 };
         while j < lp.b1 {
             let rem = lp.b1 - j;
@@ -143,15 +156,35 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
                 & _mm512_cmp_pd_mask::<_CMP_GE_OQ>(q, qlo)
                 & _mm512_cmp_pd_mask::<_CMP_LT_OQ>(q, qhi);
             if m != 0 {
-                let cf = _mm512_min_pd(
-                    _mm512_max_pd(_mm512_mul_pd(_mm512_sub_pd(q, qe0), inv_h), zero),
-                    last,
-                );
-                let cell = _mm512_cvttpd_epi64(cf);
-                _mm512_storeu_si512(cells.as_mut_ptr().cast(), cell);
-                _mm512_storeu_pd(qs.as_mut_ptr(), q);
+                if !LIN {
+                    let cf = _mm512_min_pd(
+                        _mm512_max_pd(_mm512_mul_pd(_mm512_sub_pd(q, qe0), inv_h), zero),
+                        last,
+                    );
+                    let cell = _mm512_cvttpd_epi64(cf);
+                    _mm512_storeu_si512(cells.as_mut_ptr().cast(), cell);
+                    _mm512_storeu_pd(qs.as_mut_ptr(), q);
+                }
                 let mk = m as u32;
                 let s = _mm512_sqrt_pd(q);
+                if LIN {
+                    // bin from s, then one exact q-space compare each way against edges
+                    // rebuilt as in `Binner::detect_linear` (s can sit one bin off at an edge)
+                    let g = _mm512_cvttpd_epi64(_mm512_min_pd(
+                        _mm512_max_pd(_mm512_mul_pd(_mm512_sub_pd(s, s0v), inv_dsv), zero),
+                        top,
+                    ));
+                    let gf = _mm512_cvtepi64_pd(g);
+                    let elo = _mm512_add_pd(s0v, _mm512_mul_pd(gf, dsv));
+                    let ehi = _mm512_add_pd(s0v, _mm512_mul_pd(_mm512_add_pd(gf, onef), dsv));
+                    let dn = _mm512_cmp_pd_mask::<_CMP_LT_OQ>(q, _mm512_mul_pd(elo, elo));
+                    let up = _mm512_cmp_pd_mask::<_CMP_GE_OQ>(q, _mm512_mul_pd(ehi, ehi));
+                    let g = _mm512_mask_sub_epi64(g, dn, g, one);
+                    let g = _mm512_mask_add_epi64(g, up, g, one);
+                    // rejected lanes go to the spare bin nb (never flushed)
+                    let g = _mm512_mask_blend_epi64(m, trash_v, g);
+                    _mm512_storeu_si512(bins.as_mut_ptr().cast(), g);
+                }
                 let ww = if UW {
                     _mm512_set1_pd(1.0)
                 } else {
@@ -175,11 +208,16 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const UW: bool, const ZZ: bool>(
                 }
                 // scalar adds of all eight lanes, branch-free (slots of one step never alias)
                 for k in 0..LANES {
-                    let c = cells[k] as usize;
-                    let bin = *basep.add(c) as usize + (qs[k] >= *edgep.add(c)) as usize;
-                    // rejected lanes go to the spare bin nb (never flushed)
-                    let bin = if (mk >> k) & 1 != 0 { bin } else { trash };
-                    bins[k] = bin as i64;
+                    let bin = if LIN {
+                        bins[k] as usize
+                    } else {
+                        let c = cells[k] as usize;
+                        let bin = *basep.add(c) as usize + (qs[k] >= *edgep.add(c)) as usize;
+                        // rejected lanes go to the spare bin nb (never flushed)
+                        let bin = if (mk >> k) & 1 != 0 { bin } else { trash };
+                        bins[k] = bin as i64;
+                        bin
+                    };
                     let x = bin * LANES + k;
                     *lnp.add(x) += 1;
                     *lsp.add(x) += tss[k];

@@ -168,8 +168,13 @@ fn build_tree(pts: &[Pts]) -> (STree, Vec<usize>) {
         for k in 0..nv {
             let (mut l, mut h) = ([f64::INFINITY; 4], [f64::NEG_INFINITY; 4]);
             if nd.is_leaf() {
+                // an empty t column (flat metrics) means t = 0
+                let dims = if pts[k].c[3].is_empty() { 3 } else { 4 };
+                if dims == 3 {
+                    (l[3], h[3]) = (0.0, 0.0);
+                }
                 for &p in &perm[nd.start..nd.end] {
-                    for d in 0..4 {
+                    for d in 0..dims {
                         l[d] = l[d].min(pts[k].c[d][p]);
                         h[d] = h[d].max(pts[k].c[d][p]);
                     }
@@ -429,10 +434,10 @@ fn sweep_impl(
         } else {
             format!("variant {k}: catalogue")
         };
-        pa_list.push(prepare(&a[k], &name_a, &ccfg, &geo)?);
+        pa_list.push(prepare(a[k].clone(), &name_a, &ccfg, &geo)?);
         if let Some(b) = b {
             pb_list.push(prepare(
-                &b[k],
+                b[k].clone(),
                 &format!("variant {k}: catalogue B"),
                 &ccfg,
                 &geo,
@@ -441,10 +446,10 @@ fn sweep_impl(
         geo_bn.push((geo, bn));
     }
     let (ta, perm_a) = build_tree(&pa_list);
-    let pa_list: Vec<Pts> = pa_list.iter().map(|p| permute(p, &perm_a)).collect();
+    let pa_list: Vec<Pts> = pa_list.into_iter().map(|p| permute(p, &perm_a)).collect();
     let tb_perm = if b.is_some() {
         let (t, perm) = build_tree(&pb_list);
-        pb_list = pb_list.iter().map(|p| permute(p, &perm)).collect();
+        pb_list = pb_list.into_iter().map(|p| permute(p, &perm)).collect();
         Some(t)
     } else {
         None

@@ -236,7 +236,7 @@ fn engine_s(m: Metric, a: [f64; 3], b: [f64; 3]) -> f64 {
     };
     let c = cfg(vec![0.0, 1.0], 1, m, 0);
     let (geo, _) = check_config(&c).unwrap();
-    let pts = prepare(&p, "t", &c, &geo).unwrap();
+    let pts = prepare(p.clone(), "t", &c, &geo).unwrap();
     let args = |i: usize| (pts.c[0][i], pts.c[1][i], pts.c[2][i], pts.c[3][i]);
     let ((ax, ay, az, at), (bx, by, bz, bt)) = (args(0), args(1));
     match m {
@@ -563,5 +563,70 @@ fn uneven_bins_without_table_equal_brute_force() {
             a.len(),
             &format!("{m:?}"),
         );
+    }
+}
+
+#[test]
+fn indexed_catalogues_count_like_point_sets() {
+    // one index per catalogue, reused for DD, DR and RR, equals the one-shot counts bit for bit
+    for m in metrics() {
+        let c = cfg(linear_edges(), 3, m, 4);
+        let d = data_for(&m, 31, 900, 4);
+        let r = data_for(&m, 32, 1400, 4);
+        let id = Indexed::new(d.clone(), "data", &c).unwrap();
+        let ir = Indexed::new(r.clone(), "randoms", &c).unwrap();
+        assert_eq!(id.len(), 900);
+        assert_eq!(
+            count_auto_indexed(&id, &c).unwrap(),
+            count_auto(&d, &c).unwrap()
+        );
+        assert_eq!(
+            count_cross_indexed(&id, &ir, &c).unwrap(),
+            count_cross(&d, &r, &c).unwrap()
+        );
+        assert_eq!(
+            count_auto_indexed(&ir, &c).unwrap(),
+            count_auto(&r, &c).unwrap()
+        );
+        // an index built for another region count cannot be used
+        let other = CountConfig {
+            n_regions: 0,
+            ..c.clone()
+        };
+        let e = count_auto_indexed(&id, &other).unwrap_err();
+        assert_eq!(e.exit_code(), 2, "{e}");
+    }
+}
+
+#[test]
+fn pairs_exactly_on_edges_bin_like_the_reference() {
+    // Separations exactly at edges and one ulp either side, along an axis (q = dx^2 exactly at
+    // the edge), through every kernel path: linear edges (SIMD edges rebuilt in registers),
+    // uneven edges (lookup table), flat and periodic.
+    let mut p = PointSet::default();
+    let mut x0 = 0.0;
+    // edges of `linear_edges` (8k) and of `uneven_edges` (30, 45, 60, 100, 150)
+    let targets: Vec<f64> = (1..25)
+        .map(|k| 8.0 * k as f64)
+        .chain([30.0, 45.0, 60.0, 100.0, 150.0])
+        .collect();
+    for (k, &e) in targets.iter().enumerate() {
+        for dx in [e, e.next_up(), e.next_down()] {
+            for x in [x0, x0 + dx] {
+                p.x.push(x);
+                p.y.push(0.25 * k as f64);
+                p.z.push(0.0);
+                p.w.push(1.0);
+            }
+            x0 += 450.0; // pairs of different groups lie beyond s_max
+        }
+    }
+    for edges in [linear_edges(), uneven_edges()] {
+        for m in [Metric::Euclidean, Metric::Periodic { box_size: 1e6 }] {
+            let c = cfg(edges.clone(), 1, m, 0);
+            let got = count_auto(&p, &c).unwrap();
+            assert_eq!(got, brute_force_auto(&p, &c), "{m:?}");
+            assert!(got.npairs.iter().sum::<u64>() >= 50);
+        }
     }
 }

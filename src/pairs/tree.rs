@@ -31,7 +31,8 @@ pub(crate) struct Tree {
     pub nodes: Vec<Node>,
 }
 
-/// Build the tree over `c` (4 coordinate arrays of equal, non-zero length). Returns the tree and
+/// Build the tree over `c` (3 or 4 coordinate arrays of equal, non-zero length; an empty c[3]
+/// means t = 0). Returns the tree and
 /// the permutation `perm` with tree position p holding original point `perm[p]`. Splits at the
 /// median of the widest spatial axis; deterministic for a given input.
 pub(crate) fn build(c: &[Vec<f64>; 4]) -> (Tree, Vec<usize>) {
@@ -51,8 +52,13 @@ fn build_rec(
 ) -> u32 {
     let mut lo = [f64::INFINITY; 4];
     let mut hi = [f64::NEG_INFINITY; 4];
+    // an empty t column (flat metrics) means t = 0
+    let dims = if c[3].is_empty() { 3 } else { 4 };
+    if dims == 3 {
+        (lo[3], hi[3]) = (0.0, 0.0);
+    }
     for &p in &perm[start..end] {
-        for d in 0..4 {
+        for d in 0..dims {
             lo[d] = lo[d].min(c[d][p]);
             hi[d] = hi[d].max(c[d][p]);
         }
