@@ -30,6 +30,8 @@ const SURVEY_GAL: f64 = 2e5;
 const SURVEY_RAN: f64 = 2e6;
 /// Split-RR subsets.
 const RR_SPLITS: usize = 10;
+/// Fiducial curvatures of the sweep workload.
+const SWEEP_OMEGA_K: [f64; 5] = [-0.1, -0.05, 0.0, 0.05, 0.1];
 
 /// Options of `ringscale bench`.
 #[derive(Debug, Clone)]
@@ -95,6 +97,9 @@ pub struct BenchReport {
     pub rows: Vec<BenchRow>,
     /// Split RR (M = 10 subsets) time / full RR time, N threads.
     pub split_rr_time_ratio: Option<f64>,
+    /// CPU time of a five-fiducial sweep of the survey RR over one single-fiducial RR count
+    /// (1 thread, both including reading the file).
+    pub sweep5_time_ratio: Option<f64>,
     pub notes: Vec<String>,
 }
 
@@ -574,6 +579,57 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
     let split_ratio = Some(ts / rrow.wall_nt_s);
     rows.push(rrow);
 
+    // Fiducial sweep: RR under five Omega_k fiducials (fixed physical densities and h) in one
+    // traversal, against one single-fiducial RR count; 1 thread, CPU seconds, both including
+    // reading the file and the conversion to positions.
+    let single = || -> Result<u64> {
+        let r = load(&rfile, &sky, Some(&table))?;
+        let cfg = config(metric, 1)?;
+        let r = pairs::Indexed::new(r, "randoms", &cfg)?;
+        Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
+    };
+    let sweep5 = || -> Result<u64> {
+        let cat = read_catalogue(&rfile, &sky, &RowFilter::default())?;
+        let mut sets = Vec::new();
+        let mut metrics = Vec::new();
+        for ok in SWEEP_OMEGA_K {
+            let c = cosmo.with_omega_k(ok);
+            let t = DistanceTable::new(&c, Z_HI + 0.1)?;
+            let pos = positions(&cat, Some(&t))?;
+            sets.push(PointSet {
+                x: pos.x,
+                y: pos.y,
+                z: pos.z,
+                w: cat.w.clone(),
+                redshift: pos.redshift,
+                region: Vec::new(),
+            });
+            metrics.push(match Curvature::of(&c) {
+                Curvature::Flat => Metric::Euclidean,
+                Curvature::Closed { radius } => Metric::Closed { radius },
+                Curvature::Open { radius } => Metric::Open { radius },
+            });
+        }
+        let cfg = pairs::SweepConfig {
+            binning: Binning::new(edges(), 1)?,
+            n_regions: 0,
+            threads: 1,
+        };
+        let out = pairs::sweep_auto(&sets, &metrics, &cfg)?;
+        Ok(out.iter().map(total_pairs).sum())
+    };
+    let cpu_of = |f: &dyn Fn() -> Result<u64>| -> Result<Option<f64>> {
+        let c0 = cpu_seconds();
+        f()?;
+        Ok(c0.and_then(|c0| Some(cpu_seconds()? - c0)))
+    };
+    let t_single = cpu_of(&single)?;
+    let t_sweep = cpu_of(&sweep5)?;
+    let sweep_ratio = match (t_single, t_sweep) {
+        (Some(a), Some(b)) if a > 0.0 => Some(b / a),
+        _ => None,
+    };
+
     if opt.workdir.is_none() {
         let _ = std::fs::remove_dir_all(&dir);
     }
@@ -583,6 +639,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         survey_scale: scale,
         rows,
         split_rr_time_ratio: split_ratio,
+        sweep5_time_ratio: sweep_ratio,
         notes,
     })
 }
@@ -636,6 +693,11 @@ pub fn render_table(r: &BenchReport) -> String {
         s.push_str(&format!(
             "split RR (M = {RR_SPLITS}) / full RR time, {} threads: {x:.3}\n",
             r.threads
+        ));
+    }
+    if let Some(x) = r.sweep5_time_ratio {
+        s.push_str(&format!(
+            "five-fiducial sweep (Omega_k = {SWEEP_OMEGA_K:?}) / one count, survey RR, 1 thread CPU time: {x:.2}\n"
         ));
     }
     for n in &r.notes {
