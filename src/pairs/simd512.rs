@@ -1,5 +1,5 @@
-//! AVX-512 leaf kernel for flat and periodic metrics without mu bins (the bulk of box and flat
-//! survey counting). Eight pairs per step in vector registers: the quadratic form, the in-range
+//! AVX-512 leaf kernel for counts without mu bins in flat and periodic metrics, and in curved
+//! ones wherever s_max is small against the curvature radius (the bulk of all counting). Eight pairs per step in vector registers: the quadratic form, the in-range
 //! mask, the table cell, s, and the quantised terms; then a branch-free scalar pass over the
 //! eight lanes does the table bin lookup (one exact compare) and adds into per-lane integer
 //! histograms, rejected lanes into a spare slot. (Measured on the development machine: gathers
@@ -10,11 +10,14 @@
 //! is farther than s_max from the whole b leaf box are skipped before any pair is tested.
 #![cfg(target_arch = "x86_64")]
 
-use super::kernel::{ref_pair, Acc, Binner, Geo, LeafPair, Pts, FLAT, LANES, PER};
+use super::kernel::{
+    ref_pair, Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER,
+};
 use super::tree::{node_bounds, Node};
 use std::arch::x86_64::*;
 
-/// One leaf pair. PERIODIC selects the minimum-image metric; LIN bins through edges rebuilt in
+/// One leaf pair in metric K (flat, periodic, or curved when every counted pair takes the
+/// series branch of `s_of_q`, which the caller checks); LIN bins through edges rebuilt in
 /// registers (`Binner::lin`, linear edges) instead of the table; UW / ZZ drop the weight and
 /// redshift terms (unit weights, zero redshifts).
 ///
@@ -22,7 +25,7 @@ use std::arch::x86_64::*;
 /// The CPU must support AVX-512F and AVX-512DQ; `bn.table_ok` must hold; `acc` must have been
 /// built for `bn.nb` bins.
 #[target_feature(enable = "avx512f,avx512dq")]
-pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool, const ZZ: bool>(
+pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
     lp: LeafPair,
@@ -36,16 +39,14 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
     } else {
         na * nbl
     } as u64;
+    let periodic = K == PER;
+    let curved = K == CLO || K == OPE;
     if !acc.reserve_lanes(tests) {
         // a leaf pair too large for the lane histograms: scalar path (same result)
         for i in lp.a0..lp.a1 {
             let j0 = if lp.same { i + 1 } else { lp.b0 };
             for j in j0..lp.b1 {
-                if PERIODIC {
-                    ref_pair::<PER, false>(a, i, b, j, g, bn, acc);
-                } else {
-                    ref_pair::<FLAT, false>(a, i, b, j, g, bn, acc);
-                }
+                ref_pair::<K, false>(a, i, b, j, g, bn, acc);
             }
         }
         return;
@@ -70,6 +71,10 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
     let hl = _mm512_set1_pd(g.half_l);
     let neg_hl = _mm512_set1_pd(-g.half_l);
     let (bxp, byp, bzp) = (b.c[0].as_ptr(), b.c[1].as_ptr(), b.c[2].as_ptr());
+    let btp = b.c[3].as_ptr();
+    let two_r = _mm512_set1_pd(2.0 * g.radius);
+    let coef = if K == CLO { ASIN_C } else { ASINH_C };
+    let cv = coef.map(|c| _mm512_set1_pd(c));
     let (bwp, bzzp) = (b.w.as_ptr(), b.z.as_ptr());
     let (basep, edgep) = (bn.base.as_ptr(), bn.edge.as_ptr());
     let (lnp, lwp, lsp, lzp) = (
@@ -107,17 +112,13 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
         if lp.q_cut.is_finite() {
             // rows whose point lies too far from the whole b box are skipped (exact: every
             // pair q is >= the point-to-box bound, see `node_bounds`)
-            let p = [a.c[0][i], a.c[1][i], a.c[2][i], 0.0];
+            let p = [a.c[0][i], a.c[1][i], a.c[2][i], a.t_at::<K>(i)];
             let pn = Node {
                 lo: p,
                 hi: p,
                 ..bnode
             };
-            let qmin = if PERIODIC {
-                node_bounds::<PER>(&pn, &bnode, g.box_l, g.half_l).0
-            } else {
-                node_bounds::<FLAT>(&pn, &bnode, g.box_l, g.half_l).0
-            };
+            let qmin = node_bounds::<K>(&pn, &bnode, g.box_l, g.half_l).0;
             if qmin >= lp.q_cut {
                 continue;
             }
@@ -125,6 +126,7 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
         let ax = _mm512_set1_pd(a.c[0][i]);
         let ay = _mm512_set1_pd(a.c[1][i]);
         let az = _mm512_set1_pd(a.c[2][i]);
+        let at = _mm512_set1_pd(a.t_at::<K>(i));
         let aw = _mm512_set1_pd(a.w[i]);
         let azz = _mm512_set1_pd(if ZZ { 0.0 } else { a.z[i] });
         let mut j = if lp.same { i + 1 } else { lp.b0 };
@@ -139,7 +141,7 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
             let mut dx = _mm512_sub_pd(ax, _mm512_maskz_loadu_pd(lm, bxp.add(j)));
             let mut dy = _mm512_sub_pd(ay, _mm512_maskz_loadu_pd(lm, byp.add(j)));
             let mut dz = _mm512_sub_pd(az, _mm512_maskz_loadu_pd(lm, bzp.add(j)));
-            if PERIODIC {
+            if periodic {
                 // same steps as `wrap`: d > L/2 -> d - L, else d < -L/2 -> d + L
                 for d in [&mut dx, &mut dy, &mut dz] {
                     let up = _mm512_cmp_pd_mask::<_CMP_GT_OQ>(*d, hl);
@@ -148,10 +150,20 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
                     *d = _mm512_mask_add_pd(v, dn, v, box_l);
                 }
             }
-            let q = _mm512_add_pd(
+            let mut q = _mm512_add_pd(
                 _mm512_add_pd(_mm512_mul_pd(dx, dx), _mm512_mul_pd(dy, dy)),
                 _mm512_mul_pd(dz, dz),
             );
+            if curved {
+                // same order as `pair_q`: spatial part first, then -+ dt^2
+                let dt = _mm512_sub_pd(at, _mm512_maskz_loadu_pd(lm, btp.add(j)));
+                let t2 = _mm512_mul_pd(dt, dt);
+                q = if K == CLO {
+                    _mm512_add_pd(q, t2)
+                } else {
+                    _mm512_sub_pd(q, t2)
+                };
+            }
             let m = lm
                 & _mm512_cmp_pd_mask::<_CMP_GE_OQ>(q, qlo)
                 & _mm512_cmp_pd_mask::<_CMP_LT_OQ>(q, qhi);
@@ -166,7 +178,23 @@ pub(crate) unsafe fn leaf<const PERIODIC: bool, const LIN: bool, const UW: bool,
                     _mm512_storeu_pd(qs.as_mut_ptr(), q);
                 }
                 let mk = m as u32;
-                let s = _mm512_sqrt_pd(q);
+                let s = if curved {
+                    // `s_of_q` series branch, operation for operation
+                    let c = _mm512_sqrt_pd(_mm512_max_pd(q, zero));
+                    let mut x = _mm512_div_pd(c, two_r);
+                    if K == CLO {
+                        x = _mm512_min_pd(x, onef);
+                    }
+                    let x2 = _mm512_mul_pd(x, x);
+                    let mut p = _mm512_add_pd(cv[3], _mm512_mul_pd(x2, cv[4]));
+                    p = _mm512_add_pd(cv[2], _mm512_mul_pd(x2, p));
+                    p = _mm512_add_pd(cv[1], _mm512_mul_pd(x2, p));
+                    p = _mm512_add_pd(cv[0], _mm512_mul_pd(x2, p));
+                    let a = _mm512_add_pd(x, _mm512_mul_pd(x, _mm512_mul_pd(x2, p)));
+                    _mm512_mul_pd(two_r, a)
+                } else {
+                    _mm512_sqrt_pd(q)
+                };
                 if LIN {
                     // bin from s, then one exact q-space compare each way against edges
                     // rebuilt as in `Binner::detect_linear` (s can sit one bin off at an edge)
