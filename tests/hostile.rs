@@ -9,6 +9,10 @@
 //! Full-disk simulation: `RINGSCALE_TEST_FAIL_WRITE_AFTER_BYTES=N` makes the atomic writer of
 //! the binary fail with "no space left" after N bytes (`report::atomic::FAIL_WRITE_ENV`). When
 //! the tests run as root and may mount, a real 16 KiB tmpfs is used as well (skipped otherwise).
+//!
+//! Free-space guard: `RINGSCALE_TEST_FREE_BYTES=N` makes the binary believe its output
+//! filesystem has N free bytes (`report::space::FREE_BYTES_ENV`), so outputs that would not fit
+//! are refused with exit 3 before any file is written.
 #[path = "hostile/cases.rs"]
 mod cases;
 
@@ -168,6 +172,55 @@ fn real_full_disk_exit_3_and_no_partial_file() {
     assert!(!err.contains("panicked"), "{err}");
     assert!(err.contains("counts"), "message lacks the path: {err}");
     assert!(leftovers(&out).is_empty(), "{:?}", leftovers(&out));
+}
+
+/// The counts-folder estimate behind the free-space guard (`report::space`) is an upper bound
+/// on what `count` writes, and not a wild one (within 4x), with mu bins and jackknife regions,
+/// where the state files and region arrays dominate. Sizes are measured, no external source.
+#[test]
+fn counts_folder_estimate_bounds_written_bytes() {
+    use ringscale::app::count::{folder_bytes_estimate, state_bytes_estimate};
+    use ringscale::pairs::Binning;
+    let dir = tempfile::tempdir().unwrap();
+    let (g, r) = cases::good_pair(dir.path());
+    let out = dir.path().join("counts");
+    let o = bin()
+        .args(["count", "--cosmology", "planck18", "--edges", "0:60:30"])
+        .args([
+            "--mu-bins",
+            "4",
+            "--regions",
+            "8",
+            "--threads",
+            "1",
+            "--data",
+        ])
+        .arg(&g)
+        .arg("--randoms")
+        .arg(&r)
+        .arg("--out")
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let files = leftovers(&out);
+    assert_eq!(files.len(), 10, "{files:?}");
+    let written: u64 = files
+        .iter()
+        .map(|p| std::fs::metadata(p).unwrap().len())
+        .sum();
+    let edges: Vec<f64> = (0..=30).map(|i| 2.0 * i as f64).collect();
+    let binning = Binning::new(edges, 4).unwrap();
+    let est = folder_bytes_estimate(3, &binning, 8);
+    assert!(written <= est, "{written} bytes written, estimate {est}");
+    assert!(est <= 4 * written, "estimate {est} far above {written}");
+    // The state estimate (also used for the checkpoints of plan runs) bounds each state file.
+    let state_est = state_bytes_estimate(&binning, 8);
+    for p in files.iter().filter(|p| p.ends_with(".state.json")) {
+        let size = std::fs::metadata(p).unwrap().len();
+        assert!(size <= state_est, "{p}: {size} bytes, estimate {state_est}");
+        assert!(state_est <= 4 * size, "{p}: estimate {state_est} > 4x");
+    }
 }
 
 /// The coverage check against a direct count: randoms on RA 155-165 cover exactly the galaxies

@@ -10,7 +10,7 @@ use crate::cosmology::{Cosmology, DistanceTable};
 use crate::estimator::{auto_norm, cross_norm, split_auto_norm, PairNorm, WeightSums};
 use crate::geometry::{positions, Curvature};
 use crate::pairs::{self, from_fixed, Binning, CountConfig, Metric, PairCounts, PointSet};
-use crate::report::{ecsv, json, npy};
+use crate::report::{ecsv, json, npy, space};
 use crate::{Error, Result};
 use serde::{Deserialize, Serialize};
 use std::path::{Path, PathBuf};
@@ -360,6 +360,12 @@ pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
         p.cfg.n_regions
     );
     ensure_writable(&opt.out)?;
+    let pairings = 1 + p.header.norm_dr.is_some() as u64 + p.header.norm_rr.is_some() as u64;
+    space::ensure_space(
+        &opt.out,
+        "the counts folder",
+        folder_bytes_estimate(pairings, &opt.binning, p.cfg.n_regions),
+    )?;
     let counts = p
         .header
         .pieces
@@ -730,10 +736,45 @@ pub fn ensure_writable(dir: &Path) -> Result<()> {
     Ok(())
 }
 
+/// Upper bound on the bytes of one pairing's exact state (`X.state.json`, and a unit
+/// checkpoint of `ringscale run`, which holds the same pair sums) for the free-space check:
+/// 4 + 2 * regions fixed-point integers per bin (<= 40 digits) plus pretty-printing (<= 8
+/// characters each), the edges three times over (binning and provenance), 4 KiB of metadata.
+pub fn state_bytes_estimate(binning: &Binning, n_regions: usize) -> u64 {
+    let nb = binning.n_bins() as u64;
+    let edges = (binning.s_edges.len() + binning.n_mu + 1) as u64;
+    (nb * (4 + 2 * n_regions as u64) + 3 * edges) * 48 + 4096
+}
+
+/// Upper bound on one pairing's count files: the state file, the ECSV table (per bin at most
+/// 9 numbers of <= 26 characters, 12 KiB of header and provenance) and the region array
+/// (exactly 8 bytes per value plus its 128-byte header).
+pub fn pairing_bytes_estimate(binning: &Binning, n_regions: usize) -> u64 {
+    let nb = binning.n_bins() as u64;
+    let regions = n_regions as u64;
+    let ecsv = nb * 9 * 26 + 12288;
+    let npy = if regions > 0 {
+        128 + 16 * regions * nb
+    } else {
+        0
+    };
+    state_bytes_estimate(binning, n_regions) + ecsv + npy
+}
+
+/// Upper bound on a whole counts folder: `pairings` (1 to 3) pairings plus `counts.json`.
+pub fn folder_bytes_estimate(pairings: u64, binning: &Binning, n_regions: usize) -> u64 {
+    pairings * pairing_bytes_estimate(binning, n_regions) + 8192 + binning.s_edges.len() as u64 * 48
+}
+
 /// Write a counts folder (creating it); every file atomically. When a write fails (a full
 /// disk), the files this call already wrote are removed again, so the folder never holds an
 /// incomplete set that a later `xi` could mistake for a result.
 pub fn write_folder(dir: &Path, states: &[CountState]) -> Result<()> {
+    if let Some(first) = states.first() {
+        let c = &first.counts;
+        let needed = folder_bytes_estimate(states.len() as u64, &c.binning, c.n_regions);
+        space::ensure_space(dir, "the counts folder", needed)?;
+    }
     std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, "cannot create output folder", e))?;
     let mut written = Vec::new();
     let result = (|| -> Result<()> {

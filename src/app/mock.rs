@@ -1,9 +1,10 @@
 //! `ringscale mock`: lognormal catalogues (periodic box or survey) from the EH98 spectrum of a
 //! chosen true cosmology, written as FITS (or CSV) with the settings in the header.
-use crate::catalog::{write_catalogue_with, OutColumn, Precision};
+use crate::catalog::{format_of, write_catalogue_with, Format, OutColumn, Precision};
 use crate::cosmology::power::LinearPower;
 use crate::cosmology::Cosmology;
 use crate::mock::{self, BoxMockConfig, Footprint, MockInfo, NzSpec, SurveyMockConfig};
+use crate::report::space;
 use crate::{Error, Result};
 use std::path::{Path, PathBuf};
 
@@ -72,6 +73,32 @@ fn header(info: &MockInfo, cosmo_name: &str) -> Vec<(String, String)> {
     h
 }
 
+/// Check, before writing any of them, that the catalogues (`path`, rows) with `cols` columns
+/// fit: files in the same folder are summed (an upper bound from `space::catalogue_bytes`).
+fn ensure_catalogue_space(files: &[(&Path, usize)], cols: u64, precision: Precision) -> Result<()> {
+    let width = match precision {
+        Precision::Double => 8,
+        Precision::Single => 4,
+    };
+    let mut per_dir: Vec<(&Path, u64)> = Vec::new();
+    for &(path, rows) in files {
+        let dir = path
+            .parent()
+            .filter(|p| !p.as_os_str().is_empty())
+            .unwrap_or(Path::new("."));
+        let csv = matches!(format_of(path)?, Format::Csv);
+        let bytes = space::catalogue_bytes(rows as u64, cols, width, csv);
+        match per_dir.iter_mut().find(|(d, _)| *d == dir) {
+            Some((_, b)) => *b += bytes,
+            None => per_dir.push((dir, bytes)),
+        }
+    }
+    for (dir, bytes) in per_dir {
+        space::ensure_space(dir, "the mock catalogue", bytes)?;
+    }
+    Ok(())
+}
+
 /// A power-spectrum closure from the true cosmology's EH98 spectrum (normalised to its sigma8).
 fn power_of(c: &Cosmology) -> impl Fn(f64) -> f64 + Sync {
     let p = LinearPower::eh98(c);
@@ -100,6 +127,7 @@ pub fn run_box(
             data: &cat.z,
         },
     ];
+    ensure_catalogue_space(&[(out, cat.x.len())], 3, precision)?;
     write_catalogue_with(out, &cols, &header(&info, &src.name), precision)?;
     Ok(info)
 }
@@ -114,6 +142,11 @@ pub fn run_survey(
     let src = Cosmology::from_name_or_file(cosmology)?;
     let (g, r, info) = mock::lognormal_survey_with_info(&power_of(&src.params), &src.params, cfg)?;
     let h = header(&info, &src.name);
+    ensure_catalogue_space(
+        &[(galaxies, g.ra.len()), (randoms, r.ra.len())],
+        4,
+        precision,
+    )?;
     for (cat, path) in [(&g, galaxies), (&r, randoms)] {
         let cols = [
             OutColumn {

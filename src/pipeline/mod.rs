@@ -352,6 +352,15 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
                     serde_json::json!({"catalogue": tgt.name}),
                 );
             }
+            // Room for the parts about to be counted and, unsharded, the counts folder.
+            let (b, regions) = (&prep.header.meta.binning, prep.header.meta.n_regions);
+            let mut needed = missing.len() as u64 * count::state_bytes_estimate(b, regions);
+            if opt.shard.is_none() {
+                let h = &prep.header;
+                let pairings = 1 + h.norm_dr.is_some() as u64 + h.norm_rr.is_some() as u64;
+                needed += count::folder_bytes_estimate(pairings, b, regions);
+            }
+            crate::report::space::ensure_space(out, "checkpoints and counts", needed)?;
             if header.is_none() {
                 let h = HeaderCheckpoint {
                     count_key: key.clone(),

@@ -5,3 +5,4 @@ pub mod ecsv;
 pub mod json;
 pub mod npy;
 pub mod plots;
+pub mod space;

@@ -600,6 +600,44 @@ pub fn all(dir: &Path) -> Vec<Case> {
             Some(out),
         );
     }
+    // Free-space guard (`report::space`): the output would not fit in the free bytes reported
+    // by the test hook, so the command stops with exit 3 before writing any file.
+    let out = dir.join("out_count_no_room");
+    let mut args = os(&["count", "--cosmology", "planck18", "--edges", "0:40:4"]);
+    args.extend(["--data".into(), good.clone().into()]);
+    args.extend(["--randoms".into(), randoms.clone().into()]);
+    args.extend(["--out".into(), out.clone().into()]);
+    c.push(
+        "count_output_would_not_fit",
+        args,
+        vec![("RINGSCALE_TEST_FREE_BYTES".into(), "4096".into())],
+        fail(
+            3,
+            &[
+                "/out_count_no_room: not enough free disk space",
+                "4096 available",
+            ],
+        ),
+        Some(out),
+    );
+    let out = dir.join("out_mock_no_room");
+    std::fs::create_dir(&out).unwrap();
+    let mut args = os(&["mock", "box", "--n-grid", "16", "--box", "200"]);
+    args.extend(["--nbar".into(), "0.001".into()]);
+    args.extend(["--out".into(), out.join("box.fits").into()]);
+    c.push(
+        "mock_output_would_not_fit",
+        args,
+        vec![("RINGSCALE_TEST_FREE_BYTES".into(), "20000".into())],
+        fail(
+            3,
+            &[
+                "/out_mock_no_room: not enough free disk space",
+                "20000 available",
+            ],
+        ),
+        Some(out),
+    );
     // Downstream commands on garbage.
     let junk_counts = dir.join("junk_counts");
     std::fs::create_dir(&junk_counts).unwrap();
