@@ -531,90 +531,108 @@ mod tests {
         write_catalogue(path, &cols, &[]).unwrap();
     }
 
-    // Invariance: a lognormal mock in a flat true cosmology, measured under five fiducials that
-    // share one catalogue (the noise is common to all of them). With geodesic separations the
-    // fitted alpha absorbs the fiducial and D_V/r_d agrees within 0.3 sigma (the tolerance the
-    // project set for this check; common practice, no source). The naive rows are reported and
-    // must differ from the exact ones (they use a different separation), with the deviation
-    // printed for the record.
+    // Invariance: lognormal mocks in a flat true cosmology, each measured under five fiducials
+    // that share its catalogue. With geodesic separations the fitted alpha absorbs the
+    // fiducial, so D_V/r_d must not move: the deviation from the Omega_k = 0 fiducial, in units
+    // of that fit's sigma and averaged over mocks (a single mock adds re-binning noise of a few
+    // tenths of sigma, since the fiducials move pairs across bin edges), stays within 0.3 sigma
+    // for every fiducial (the tolerance the project set for this check; common practice, no
+    // source). The naive rows are reported and must differ from the exact ones (they use a
+    // different separation), with the deviation printed for the record.
     #[test]
-    #[ignore = "mock-size tuning pending: first run took ~17 min on 2 shared cores"]
     fn exact_mapping_is_invariant_across_fiducials() {
         let truth = Cosmology::planck18();
         let lp = LinearPower::eh98(&truth);
-        let cfg = SurveyMockConfig {
-            footprint: Footprint::Cap {
-                ra_deg: 180.0,
-                dec_deg: 30.0,
-                radius_deg: 10.0,
-            },
-            z_min: 0.4,
-            z_max: 0.6,
-            nbar: NzSpec::Constant(1.5e-4),
-            bias: 2.0,
-            n_grid: 128,
-            seed: 5,
-            random_factor: 1.5,
-        };
-        let (g, r) = lognormal_survey(&|k| lp.p_lin(k), &truth, &cfg).unwrap();
-        let dir = std::env::temp_dir().join(format!("ringscale-sweep-test-{}", std::process::id()));
-        std::fs::create_dir_all(&dir).unwrap();
-        write(&dir.join("g.csv"), &g);
-        write(&dir.join("r.csv"), &r);
-        let opt = SweepOptions {
-            data: dir.join("g.csv"),
-            randoms: dir.join("r.csv"),
-            fiducials: FiducialList::OmegaK {
-                base: "planck18".into(),
-                values: vec![-0.1, -0.05, 0.0, 0.05, 0.1],
-            },
-            columns: ColumnMap::sky("RA", "DEC", "Z", vec!["WEIGHT".into()], None),
-            filter: RowFilter::default(),
-            binning: Binning::new(
-                crate::app::count::parse_edges("20:180:16", false).unwrap(),
-                1,
-            )
-            .unwrap(),
-            rr_splits: 1,
-            regions: RegionChoice::Assign { k: 40, seed: 1 },
-            naive: true,
-            threads: 0,
-            out: dir.join("out"),
-            fit: IsotropicOptions::default(),
-            template: TemplateOptions::default(),
-            plots: false,
-        };
-        let s = run(&opt).unwrap();
-        for r in &s.rows {
-            eprintln!(
-                "{:28} {:6} alpha = {:.4} +- {:.4}  DV/rd = {:.3} +- {:.3}  dev = {:+.3} sigma",
-                r.label,
-                r.mapping,
-                r.alpha,
-                r.alpha_err,
-                r.dv_over_rd,
-                r.dv_over_rd_err,
-                r.deviation_sigma
-            );
+        let seeds = 1..=6u64;
+        let n_seeds = seeds.clone().count() as f64;
+        let mut mean_dev = [0.0f64; 5];
+        let mut mean_naive = [0.0f64; 4];
+        for seed in seeds {
+            let cfg = SurveyMockConfig {
+                footprint: Footprint::Cap {
+                    ra_deg: 180.0,
+                    dec_deg: 30.0,
+                    radius_deg: 10.0,
+                },
+                z_min: 0.4,
+                z_max: 0.6,
+                nbar: NzSpec::Constant(1.5e-4),
+                bias: 2.0,
+                n_grid: 128,
+                seed,
+                random_factor: 1.5,
+            };
+            let (g, r) = lognormal_survey(&|k| lp.p_lin(k), &truth, &cfg).unwrap();
+            let dir = std::env::temp_dir().join(format!(
+                "ringscale-sweep-test-{}-{seed}",
+                std::process::id()
+            ));
+            std::fs::create_dir_all(&dir).unwrap();
+            write(&dir.join("g.csv"), &g);
+            write(&dir.join("r.csv"), &r);
+            let opt = SweepOptions {
+                data: dir.join("g.csv"),
+                randoms: dir.join("r.csv"),
+                fiducials: FiducialList::OmegaK {
+                    base: "planck18".into(),
+                    values: vec![-0.1, -0.05, 0.0, 0.05, 0.1],
+                },
+                columns: ColumnMap::sky("RA", "DEC", "Z", vec!["WEIGHT".into()], None),
+                filter: RowFilter::default(),
+                binning: Binning::new(
+                    crate::app::count::parse_edges("20:180:16", false).unwrap(),
+                    1,
+                )
+                .unwrap(),
+                rr_splits: 1,
+                regions: RegionChoice::Assign { k: 40, seed: 1 },
+                naive: true,
+                threads: 0,
+                out: dir.join("out"),
+                fit: IsotropicOptions::default(),
+                template: TemplateOptions::default(),
+                plots: false,
+            };
+            let s = run(&opt).unwrap();
+            for r in &s.rows {
+                eprintln!(
+                    "seed {seed} {:28} {:6} alpha = {:.4} +- {:.4}  DV/rd = {:.3} +- {:.3}  dev = {:+.3} sigma",
+                    r.label,
+                    r.mapping,
+                    r.alpha,
+                    r.alpha_err,
+                    r.dv_over_rd,
+                    r.dv_over_rd_err,
+                    r.deviation_sigma
+                );
+            }
+            assert_eq!(s.rows.len(), 9);
+            assert!(s
+                .rows
+                .iter()
+                .all(|r| r.dv_over_rd.is_finite() && r.dv_over_rd_err > 0.0));
+            let ex: Vec<&SweepRow> = s.rows.iter().filter(|r| r.mapping == "exact").collect();
+            let nv: Vec<&SweepRow> = s.rows.iter().filter(|r| r.mapping == "naive").collect();
+            for (m, r) in mean_dev.iter_mut().zip(&ex) {
+                *m += r.deviation_sigma / n_seeds;
+            }
+            for (m, r) in mean_naive.iter_mut().zip(&nv) {
+                *m += r.deviation_sigma / n_seeds;
+            }
+            // alpha must move with the fiducial (otherwise the test would not probe
+            // invariance): D_V^fid/r_d^fid changes by several per cent between Omega_k = -0.1
+            // and +0.1.
+            let dvf: Vec<f64> = ex.iter().map(|r| r.dv_fid_over_rd_fid).collect();
+            assert!((dvf[4] / dvf[0] - 1.0).abs() > 0.01);
+            assert!(s.naive_max_deviation_sigma.is_finite());
+            assert!(dir.join("out").join(&ex[2].label).join("fit").exists());
+            assert!(dir.join("out/sweep.ecsv").exists());
+            let _ = std::fs::remove_dir_all(&dir);
         }
-        assert_eq!(s.rows.len(), 9);
-        assert!(s
-            .rows
-            .iter()
-            .all(|r| r.dv_over_rd.is_finite() && r.dv_over_rd_err > 0.0));
+        eprintln!("mean deviation, exact: {mean_dev:+.3?}; naive: {mean_naive:+.3?}");
         assert!(
-            s.exact_spread_sigma < 0.3,
-            "exact spread {} sigma",
-            s.exact_spread_sigma
+            mean_dev.iter().all(|d| d.abs() < 0.3),
+            "mean exact deviations {mean_dev:?} sigma"
         );
-        // alpha must move with the fiducial (otherwise the test would not probe invariance):
-        // D_V^fid/r_d^fid changes by several per cent between Omega_k = -0.1 and +0.1.
-        let ex: Vec<&SweepRow> = s.rows.iter().filter(|r| r.mapping == "exact").collect();
-        let dvf: Vec<f64> = ex.iter().map(|r| r.dv_fid_over_rd_fid).collect();
-        assert!((dvf[4] / dvf[0] - 1.0).abs() > 0.01);
-        assert!(s.naive_max_deviation_sigma.is_finite());
-        assert!(dir.join("out").join(&ex[2].label).join("fit").exists());
-        assert!(dir.join("out/sweep.ecsv").exists());
-        let _ = std::fs::remove_dir_all(&dir);
     }
 }
