@@ -38,18 +38,21 @@ pub(crate) struct Tree {
 pub(crate) fn build(c: &[Vec<f64>; 4]) -> (Tree, Vec<usize>) {
     let n = c[0].len();
     let mut perm: Vec<usize> = (0..n).collect();
-    let mut nodes = Vec::with_capacity(2 * n / LEAF_SIZE + 2);
-    build_rec(c, &mut perm, 0, n, &mut nodes);
+    // the top levels split their two halves over the current rayon pool; the node order is
+    // the sequential depth-first pre-order either way, so the tree never depends on threads
+    let depth = if n >= PAR_MIN_POINTS { PAR_LEVELS } else { 0 };
+    let nodes = build_par(c, &mut perm, 0, depth);
     (Tree { nodes }, perm)
 }
 
-fn build_rec(
-    c: &[Vec<f64>; 4],
-    perm: &mut [usize],
-    start: usize,
-    end: usize,
-    nodes: &mut Vec<Node>,
-) -> u32 {
+/// Subtrees below this size are built on one thread.
+const PAR_MIN_POINTS: usize = 20_000;
+/// Levels of the tree whose halves are built in parallel (up to 2^PAR_LEVELS tasks).
+const PAR_LEVELS: u32 = 4;
+
+/// Bounds of the points `perm` (global positions start..start + perm.len()) and, when the
+/// node is to be split, the split: (node, Some((axis, local mid))).
+fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option<usize>) {
     let mut lo = [f64::INFINITY; 4];
     let mut hi = [f64::NEG_INFINITY; 4];
     // an empty t column (flat metrics) means t = 0
@@ -57,33 +60,78 @@ fn build_rec(
     if dims == 3 {
         (lo[3], hi[3]) = (0.0, 0.0);
     }
-    for &p in &perm[start..end] {
+    for &p in perm.iter() {
         for d in 0..dims {
             lo[d] = lo[d].min(c[d][p]);
             hi[d] = hi[d].max(c[d][p]);
         }
     }
-    let id = nodes.len();
-    nodes.push(Node {
+    let len = perm.len();
+    let node = Node {
         lo,
         hi,
         start,
-        end,
+        end: start + len,
         left: 0,
         right: 0,
+    };
+    if len <= LEAF_SIZE {
+        return (node, None);
+    }
+    let dim = (0..3)
+        .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
+        .unwrap_or(0);
+    // split near the middle at a multiple of 8 points from the start where possible, so
+    // leaves fill whole 8-lane SIMD steps
+    let half = len / 2;
+    let mid = if half >= 8 { (half + 4) / 8 * 8 } else { half };
+    perm.select_nth_unstable_by(mid, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
+    (node, Some(mid))
+}
+
+/// Subtree of `perm` in depth-first pre-order, child indices relative to the returned vector.
+fn build_par(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize, depth: u32) -> Vec<Node> {
+    if depth == 0 {
+        let mut nodes = Vec::with_capacity(2 * perm.len() / LEAF_SIZE + 2);
+        build_rec(c, perm, start, &mut nodes);
+        return nodes;
+    }
+    let (node, split) = node_of(c, perm, start);
+    let Some(mid) = split else {
+        return vec![node];
+    };
+    let (pl, pr) = perm.split_at_mut(mid);
+    let (ln, rn) = rayon::join(
+        || build_par(c, pl, start, depth - 1),
+        || build_par(c, pr, start + mid, depth - 1),
+    );
+    let mut nodes = Vec::with_capacity(1 + ln.len() + rn.len());
+    nodes.push(Node {
+        left: 1,
+        right: 1 + ln.len() as u32,
+        ..node
     });
-    if end - start > LEAF_SIZE {
-        let dim = (0..3)
-            .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
-            .unwrap_or(0);
-        // split near the middle at a multiple of 8 points from the start where possible, so
-        // leaves fill whole 8-lane SIMD steps
-        let half = (end - start) / 2;
-        let mid = start + if half >= 8 { (half + 4) / 8 * 8 } else { half };
-        perm[start..end]
-            .select_nth_unstable_by(mid - start, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
-        let l = build_rec(c, perm, start, mid, nodes);
-        let r = build_rec(c, perm, mid, end, nodes);
+    for (sub, off) in [(ln, 1u32), (rn, 1 + nodes[0].right - 1)] {
+        nodes.extend(sub.into_iter().map(|mut nd| {
+            if !nd.is_leaf() {
+                nd.left += off;
+                nd.right += off;
+            }
+            nd
+        }));
+    }
+    nodes
+}
+
+/// Sequential subtree, appended to `nodes` (global child indices); returns its root index.
+fn build_rec(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize, nodes: &mut Vec<Node>) -> u32 {
+    let (node, split) = node_of(c, perm, start);
+    let id = nodes.len();
+    nodes.push(node);
+    if let Some(mid) = split {
+        let (pl, pr) = perm.split_at_mut(mid);
+        let l = build_rec(c, pl, start, nodes);
+        let r = build_rec(c, pr, start + mid, nodes);
         nodes[id].left = l;
         nodes[id].right = r;
     }
