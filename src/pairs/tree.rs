@@ -5,7 +5,7 @@ use super::kernel::{CLO, OPE, PER};
 /// Maximum points per leaf bucket.
 pub(crate) const LEAF_SIZE: usize = 32;
 
-#[derive(Debug, Clone)]
+#[derive(Debug, Clone, PartialEq)]
 pub(crate) struct Node {
     pub lo: [f64; 4],
     pub hi: [f64; 4],
@@ -180,4 +180,42 @@ pub(crate) fn node_bounds<const K: u8>(a: &Node, b: &Node, l: f64, hl: f64) -> (
         qmax -= dmin[3] * dmin[3];
     }
     (qmin, qmax)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn parallel_build_equals_sequential_build() {
+        // above PAR_MIN_POINTS the top levels are built with rayon::join; the nodes, their
+        // order and the permutation must be those of the plain recursive build
+        let n = 3 * PAR_MIN_POINTS + 13;
+        let mut s = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = || {
+            s ^= s << 13;
+            s ^= s >> 7;
+            s ^= s << 17;
+            (s >> 11) as f64 / (1u64 << 53) as f64
+        };
+        let c: [Vec<f64>; 4] = [
+            (0..n).map(|_| 500.0 * next()).collect(),
+            (0..n).map(|_| 300.0 * next()).collect(),
+            (0..n).map(|_| 100.0 * next()).collect(),
+            Vec::new(),
+        ];
+        let mut perm: Vec<usize> = (0..n).collect();
+        let mut seq = Vec::new();
+        build_rec(&c, &mut perm, 0, &mut seq);
+        for threads in [1, 3] {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(threads)
+                .build()
+                .unwrap();
+            let (t, p) = pool.install(|| build(&c));
+            assert_eq!(p, perm, "{threads} threads");
+            assert_eq!(t.nodes, seq, "{threads} threads");
+        }
+        assert!(seq.len() > 1000 && seq.iter().all(|nd| nd.len() > 0));
+    }
 }
