@@ -579,10 +579,8 @@ impl Indexed {
         let pts = prepare(p, name, cfg, &geo)?;
         // the tree build uses the count's threads (the tree does not depend on them)
         let pool = build_pool(cfg.threads)?;
-        let (tree, pts) = pool.install(|| {
-            let (tree, perm) = tree::build(&pts.c);
-            (tree, permute(pts, &perm))
-        });
+        let (tree, perm) = tree::build_in(&pts.c, Some(&pool));
+        let pts = permute(pts, &perm);
         Ok(Indexed {
             pts,
             tree,

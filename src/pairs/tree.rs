@@ -35,13 +35,30 @@ pub(crate) struct Tree {
 /// means t = 0). Returns the tree and
 /// the permutation `perm` with tree position p holding original point `perm[p]`. Splits at the
 /// median of the widest spatial axis; deterministic for a given input.
-pub(crate) fn build(c: &[Vec<f64>; 4]) -> (Tree, Vec<usize>) {
+///
+/// The parallel levels run on `pool` (else the current rayon pool); the arrays are allocated by
+/// the calling thread, so pool workers allocate nothing.
+pub(crate) fn build_in(c: &[Vec<f64>; 4], pool: Option<&rayon::ThreadPool>) -> (Tree, Vec<usize>) {
     let n = c[0].len();
     let mut perm: Vec<usize> = (0..n).collect();
-    // the top levels split their two halves over the current rayon pool; the node order is
-    // the sequential depth-first pre-order either way, so the tree never depends on threads
+    // The top levels split their two halves over the current rayon pool. Every subtree's node
+    // count follows from its point count alone (`count_nodes`), so each half writes its own
+    // slice of one preallocated array in the sequential depth-first pre-order: the tree never
+    // depends on threads, and no per-thread buffers are allocated.
     let depth = if n >= PAR_MIN_POINTS { PAR_LEVELS } else { 0 };
-    let nodes = build_par(c, &mut perm, 0, depth);
+    let blank = Node {
+        lo: [0.0; 4],
+        hi: [0.0; 4],
+        start: 0,
+        end: 0,
+        left: 0,
+        right: 0,
+    };
+    let mut nodes = vec![blank; count_nodes(n)];
+    match pool {
+        Some(p) => p.install(|| build_par(c, &mut perm, 0, &mut nodes, 0, depth)),
+        None => build_par(c, &mut perm, 0, &mut nodes, 0, depth),
+    }
     (Tree { nodes }, perm)
 }
 
@@ -49,6 +66,86 @@ pub(crate) fn build(c: &[Vec<f64>; 4]) -> (Tree, Vec<usize>) {
 const PAR_MIN_POINTS: usize = 20_000;
 /// Levels of the tree whose halves are built in parallel (up to 2^PAR_LEVELS tasks).
 const PAR_LEVELS: u32 = 4;
+
+/// Size of the left half of a node of `len` points (see `node_of`).
+fn split_point(len: usize) -> usize {
+    // near the middle at a multiple of 8 points where possible, so leaves fill whole 8-lane
+    // SIMD steps
+    let half = len / 2;
+    if half >= 8 {
+        (half + 4) / 8 * 8
+    } else {
+        half
+    }
+}
+
+/// Number of nodes of a subtree of `len` points.
+fn count_nodes(len: usize) -> usize {
+    if len <= LEAF_SIZE {
+        1
+    } else {
+        let mid = split_point(len);
+        1 + count_nodes(mid) + count_nodes(len - mid)
+    }
+}
+
+/// Subtree of `perm` (global positions from `start`) written to `out` in pre-order; `base` is
+/// the global index of out[0].
+fn build_par(
+    c: &[Vec<f64>; 4],
+    perm: &mut [usize],
+    start: usize,
+    out: &mut [Node],
+    base: u32,
+    depth: u32,
+) {
+    if depth == 0 {
+        let mut cur = 0;
+        build_seq(c, perm, start, out, &mut cur, base);
+        debug_assert_eq!(cur, out.len());
+        return;
+    }
+    let (node, split) = node_of(c, perm, start);
+    let Some(mid) = split else {
+        out[0] = node;
+        return;
+    };
+    let nl = count_nodes(mid);
+    out[0] = Node {
+        left: base + 1,
+        right: base + 1 + nl as u32,
+        ..node
+    };
+    let (lo, ro) = out[1..].split_at_mut(nl);
+    let (pl, pr) = perm.split_at_mut(mid);
+    rayon::join(
+        || build_par(c, pl, start, lo, base + 1, depth - 1),
+        || build_par(c, pr, start + mid, ro, base + 1 + nl as u32, depth - 1),
+    );
+}
+
+/// Sequential subtree written to out[*cur..] in pre-order; returns its root's global index.
+fn build_seq(
+    c: &[Vec<f64>; 4],
+    perm: &mut [usize],
+    start: usize,
+    out: &mut [Node],
+    cur: &mut usize,
+    base: u32,
+) -> u32 {
+    let (node, split) = node_of(c, perm, start);
+    let id = *cur;
+    out[id] = node;
+    *cur += 1;
+    if let Some(mid) = split {
+        let (pl, pr) = perm.split_at_mut(mid);
+        let l = build_seq(c, pl, start, out, cur, base);
+        let r = build_seq(c, pr, start + mid, out, cur, base);
+        out[id].left = l;
+        out[id].right = r;
+    }
+    base + id as u32
+}
 
 /// Bounds of the points `perm` (global positions start..start + perm.len()) and, when the
 /// node is to be split, the split: (node, Some((axis, local mid))).
@@ -81,61 +178,9 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option
     let dim = (0..3)
         .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
         .unwrap_or(0);
-    // split near the middle at a multiple of 8 points from the start where possible, so
-    // leaves fill whole 8-lane SIMD steps
-    let half = len / 2;
-    let mid = if half >= 8 { (half + 4) / 8 * 8 } else { half };
+    let mid = split_point(len);
     perm.select_nth_unstable_by(mid, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
     (node, Some(mid))
-}
-
-/// Subtree of `perm` in depth-first pre-order, child indices relative to the returned vector.
-fn build_par(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize, depth: u32) -> Vec<Node> {
-    if depth == 0 {
-        let mut nodes = Vec::with_capacity(2 * perm.len() / LEAF_SIZE + 2);
-        build_rec(c, perm, start, &mut nodes);
-        return nodes;
-    }
-    let (node, split) = node_of(c, perm, start);
-    let Some(mid) = split else {
-        return vec![node];
-    };
-    let (pl, pr) = perm.split_at_mut(mid);
-    let (ln, rn) = rayon::join(
-        || build_par(c, pl, start, depth - 1),
-        || build_par(c, pr, start + mid, depth - 1),
-    );
-    let mut nodes = Vec::with_capacity(1 + ln.len() + rn.len());
-    nodes.push(Node {
-        left: 1,
-        right: 1 + ln.len() as u32,
-        ..node
-    });
-    for (sub, off) in [(ln, 1u32), (rn, 1 + nodes[0].right - 1)] {
-        nodes.extend(sub.into_iter().map(|mut nd| {
-            if !nd.is_leaf() {
-                nd.left += off;
-                nd.right += off;
-            }
-            nd
-        }));
-    }
-    nodes
-}
-
-/// Sequential subtree, appended to `nodes` (global child indices); returns its root index.
-fn build_rec(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize, nodes: &mut Vec<Node>) -> u32 {
-    let (node, split) = node_of(c, perm, start);
-    let id = nodes.len();
-    nodes.push(node);
-    if let Some(mid) = split {
-        let (pl, pr) = perm.split_at_mut(mid);
-        let l = build_rec(c, pl, start, nodes);
-        let r = build_rec(c, pr, start + mid, nodes);
-        nodes[id].left = l;
-        nodes[id].right = r;
-    }
-    id as u32
 }
 
 /// Bounds [qmin, qmax] on q over all pairs with one point in box `a` and one in box `b`.
@@ -188,8 +233,9 @@ mod tests {
 
     #[test]
     fn parallel_build_equals_sequential_build() {
-        // above PAR_MIN_POINTS the top levels are built with rayon::join; the nodes, their
-        // order and the permutation must be those of the plain recursive build
+        // above PAR_MIN_POINTS the top levels are built with rayon::join into slices of one
+        // array; the nodes, their order and the permutation must be those of the plain
+        // sequential pre-order build
         let n = 3 * PAR_MIN_POINTS + 13;
         let mut s = 0x9e37_79b9_7f4a_7c15u64;
         let mut next = || {
@@ -205,14 +251,24 @@ mod tests {
             Vec::new(),
         ];
         let mut perm: Vec<usize> = (0..n).collect();
-        let mut seq = Vec::new();
-        build_rec(&c, &mut perm, 0, &mut seq);
+        let blank = Node {
+            lo: [0.0; 4],
+            hi: [0.0; 4],
+            start: 0,
+            end: 0,
+            left: 0,
+            right: 0,
+        };
+        let mut seq = vec![blank; count_nodes(n)];
+        let mut cur = 0;
+        build_seq(&c, &mut perm, 0, &mut seq, &mut cur, 0);
+        assert_eq!(cur, seq.len());
         for threads in [1, 3] {
             let pool = rayon::ThreadPoolBuilder::new()
                 .num_threads(threads)
                 .build()
                 .unwrap();
-            let (t, p) = pool.install(|| build(&c));
+            let (t, p) = build_in(&c, Some(&pool));
             assert_eq!(p, perm, "{threads} threads");
             assert_eq!(t.nodes, seq, "{threads} threads");
         }
