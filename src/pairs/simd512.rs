@@ -11,7 +11,7 @@
 #![cfg(target_arch = "x86_64")]
 
 use super::kernel::{
-    ref_pair, Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER,
+    leaf_ref, Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER,
 };
 use super::tree::{node_bounds, Node};
 use std::arch::x86_64::*;
@@ -42,13 +42,8 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
     let periodic = K == PER;
     let curved = K == CLO || K == OPE;
     if !acc.reserve_lanes(tests) {
-        // a leaf pair too large for the lane histograms: scalar path (same result)
-        for i in lp.a0..lp.a1 {
-            let j0 = if lp.same { i + 1 } else { lp.b0 };
-            for j in j0..lp.b1 {
-                ref_pair::<K, false>(a, i, b, j, g, bn, acc);
-            }
-        }
+        // a leaf pair too large for the lane histograms: the reference kernel (same result)
+        leaf_ref::<K, false>(a, b, lp, g, bn, acc);
         return;
     }
     if UW {

@@ -17,6 +17,16 @@ pub(crate) struct Node {
 }
 
 impl Node {
+    /// Placeholder of a preallocated node array.
+    pub const BLANK: Node = Node {
+        lo: [0.0; 4],
+        hi: [0.0; 4],
+        start: 0,
+        end: 0,
+        left: 0,
+        right: 0,
+    };
+
     pub fn is_leaf(&self) -> bool {
         self.left == 0
     }
@@ -46,15 +56,7 @@ pub(crate) fn build_in(c: &[Vec<f64>; 4], pool: Option<&rayon::ThreadPool>) -> (
     // slice of one preallocated array in the sequential depth-first pre-order: the tree never
     // depends on threads, and no per-thread buffers are allocated.
     let depth = if n >= PAR_MIN_POINTS { PAR_LEVELS } else { 0 };
-    let blank = Node {
-        lo: [0.0; 4],
-        hi: [0.0; 4],
-        start: 0,
-        end: 0,
-        left: 0,
-        right: 0,
-    };
-    let mut nodes = vec![blank; count_nodes(n)];
+    let mut nodes = vec![Node::BLANK; count_nodes(n)];
     match pool {
         Some(p) => p.install(|| build_par(c, &mut perm, 0, &mut nodes, 0, depth)),
         None => build_par(c, &mut perm, 0, &mut nodes, 0, depth),
@@ -251,15 +253,7 @@ mod tests {
             Vec::new(),
         ];
         let mut perm: Vec<usize> = (0..n).collect();
-        let blank = Node {
-            lo: [0.0; 4],
-            hi: [0.0; 4],
-            start: 0,
-            end: 0,
-            left: 0,
-            right: 0,
-        };
-        let mut seq = vec![blank; count_nodes(n)];
+        let mut seq = vec![Node::BLANK; count_nodes(n)];
         let mut cur = 0;
         build_seq(&c, &mut perm, 0, &mut seq, &mut cur, 0);
         assert_eq!(cur, seq.len());
