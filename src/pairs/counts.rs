@@ -5,8 +5,9 @@
 //! same total. Values convert to f64 only at the edges.
 use serde::{Deserialize, Serialize};
 
-/// Fractional bits of the fixed-point accumulators: 2^-48 ~ 3.6e-15 absolute resolution per
-/// added term, with i128 headroom for > 1e14 pairs of weight product 1e4 times s = 1e3.
+/// Fractional bits of the fixed-point totals (i128). The kernels round each pair's terms with at
+/// most this many bits (fewer for large terms, see `kernel::Quant`), so totals hold > 1e14
+/// pairs of weight product 1e4 times s = 1e3 with room to spare.
 pub const FRAC_BITS: u32 = 48;
 const SCALE: f64 = (1u64 << FRAC_BITS) as f64;
 

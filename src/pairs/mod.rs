@@ -139,8 +139,8 @@ pub fn memory_estimate_bytes(n_a: usize, n_b: usize, cfg: &CountConfig) -> u64 {
     n * per_point + nodes * per_node + table + tasks + threads * per_thread + counts
 }
 
-/// Number of top-level node pairs the traversal is cut into (fixed so the f64 grouping of sums,
-/// and therefore the bits of the result, never depend on threads or shards).
+/// Number of top-level node pairs the traversal is cut into: work units for threads and shards
+/// (fixed, so shard k/N means the same pairs on every machine).
 const TASK_TARGET: usize = 4096;
 
 fn geo_of(metric: &Metric) -> Geo {

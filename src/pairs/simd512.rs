@@ -1,8 +1,9 @@
 //! AVX-512 leaf kernel for counts without mu bins in flat and periodic metrics, and in curved
-//! ones wherever s_max is small against the curvature radius (the bulk of all counting). Eight pairs per step in vector registers: the quadratic form, the in-range
-//! mask, the table cell, s, and the quantised terms; then a branch-free scalar pass over the
-//! eight lanes does the table bin lookup (one exact compare) and adds into per-lane integer
-//! histograms, rejected lanes into a spare slot. (Measured on the development machine: gathers
+//! ones wherever s_max is small against the curvature radius (the bulk of all counting). Eight
+//! pairs per step in vector registers: the quadratic form, the in-range mask, s, the bin (edges
+//! rebuilt in registers for linear bins) and the quantised terms; then a branch-free scalar
+//! pass over the eight lanes (doing the table bin lookup with one exact compare for other
+//! bins) adds into per-lane integer histograms, rejected lanes into a spare slot. (Measured on the development machine: gathers
 //! and scatters for these steps were no faster, and masked per-lane branches mispredict.)
 //! Lane k always writes slot `bin * 8 + k`, so lanes of one step never alias. Each pair term is
 //! quantised exactly as `Quant::fix_*` do (multiply by 2^frac, convert with the default

@@ -295,7 +295,7 @@ struct STask {
     alive: u32,
 }
 
-/// Number of top-level node pairs (fixed: the f64 grouping depends only on data and binning).
+/// Number of top-level node pairs (the work units of the threads).
 const TASK_TARGET: usize = 4096;
 
 struct SWalker<'a> {
