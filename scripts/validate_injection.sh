@@ -2,7 +2,7 @@
 # Injection and recovery: lognormal survey mocks made under a true cosmology A are analysed under
 # fiducials B (flat with another Omega_m, and curved with Omega_k = -0.05 and +0.05). Each fit's
 # alpha is compared with alpha_expected = [D_V^A(z_eff)/r_d^A] / [D_V^B(z_eff)/r_d^B].
-# Usage: scripts/validate_injection.sh [N_SEEDS=10] [WORKDIR=validation_out]
+# Usage: scripts/validate_injection.sh [N_SEEDS=20] [WORKDIR=validation_out]
 # THREADS=n limits the mock and the pair counts to n threads (default: all cores).
 #
 # Settings: a 35-degree cap at 0.4 < z < 0.7 with nbar = 1e-4 (h/Mpc)^3 (about 160 000 galaxies
@@ -17,7 +17,7 @@
 # Cost: about 100 CPU seconds per seed on one core (mock 11 s, counts 16/28/44 s flat/closed/open).
 set -euo pipefail
 cd "$(dirname "$0")/.."
-N=${1:-10}
+N=${1:-20}
 W=${2:-validation_out}
 cargo build --release --quiet
 RS=$PWD/target/release/ringscale
