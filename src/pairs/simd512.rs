@@ -42,8 +42,10 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
     } as u64;
     let periodic = K == PER;
     let curved = K == CLO || K == OPE;
-    if !acc.reserve_lanes(tests) {
-        // a leaf pair too large for the lane histograms: the reference kernel (same result)
+    // lane sums are folded into the totals per leaf pair, or per row for very large weights
+    let per_row = !acc.reserve_lanes(tests);
+    if per_row && (nbl as u64) > acc.q.lane_limit {
+        // not even one row fits the lane histograms: the reference kernel (same result)
         leaf_ref::<K, false>(a, b, lp, g, bn, acc);
         return;
     }
@@ -73,12 +75,6 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
     let cv = coef.map(|c| _mm512_set1_pd(c));
     let (bwp, bzzp) = (b.w.as_ptr(), b.z.as_ptr());
     let (basep, edgep) = (bn.base.as_ptr(), bn.edge.as_ptr());
-    let (lnp, lwp, lsp, lzp) = (
-        acc.ln.as_mut_ptr(),
-        acc.lw.as_mut_ptr(),
-        acc.ls.as_mut_ptr(),
-        acc.lz.as_mut_ptr(),
-    );
     let trash = bn.nb;
     let (s0, ds, inv_ds) = bn.lin.unwrap_or((0.0, 1.0, 1.0));
     let (s0v, dsv, inv_dsv) = (
@@ -119,6 +115,16 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
                 continue;
             }
         }
+        if per_row {
+            acc.reserve_lanes(nbl as u64);
+        }
+        // derived per row: a fold of the lanes (above) writes through the vectors themselves
+        let (lnp, lwp, lsp, lzp) = (
+            acc.ln.as_mut_ptr(),
+            acc.lw.as_mut_ptr(),
+            acc.ls.as_mut_ptr(),
+            acc.lz.as_mut_ptr(),
+        );
         let ax = _mm512_set1_pd(a.c[0][i]);
         let ay = _mm512_set1_pd(a.c[1][i]);
         let az = _mm512_set1_pd(a.c[2][i]);

@@ -1,5 +1,5 @@
 //! Tests of the pair-count engine against brute force and independent references.
-use super::kernel::{pair_q, s_of_q, Binner, KernelKind, CLO, OPE};
+use super::kernel::{pair_q, s_of_q, Binner, KernelKind, Quant, CLO, OPE};
 use super::*;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
@@ -629,4 +629,33 @@ fn pairs_exactly_on_edges_bin_like_the_reference() {
             assert!(got.npairs.iter().sum::<u64>() >= 50);
         }
     }
+}
+
+#[test]
+fn large_weights_fold_lanes_per_row_and_absurd_weights_are_refused() {
+    // weights near 10: the SIMD lane sums must be folded every row (w1 w2 s up to 2e4 at
+    // 2^40 per unit), still bitwise the reference; weights of 1e5 cannot be represented
+    let mut p = boxed(1500, 41, 300.0);
+    for (i, w) in p.w.iter_mut().enumerate() {
+        *w = 5.0 + (i % 7) as f64 * 0.8;
+    }
+    let c = cfg(
+        (0..=20).map(|k| 10.0 * k as f64).collect(),
+        1,
+        Metric::Euclidean,
+        0,
+    );
+    let q = Quant::for_bounds([100.0, 100.0 * 200.0, 0.0]).unwrap();
+    assert!(
+        q.lane_limit < 1024 && q.lane_limit >= 32,
+        "{}",
+        q.lane_limit
+    );
+    let f = count_auto(&p, &c).unwrap();
+    assert_eq!(f, brute_force_auto(&p, &c));
+    assert!(f.npairs.iter().sum::<u64>() > 10_000);
+    p.w[3] = 1e5;
+    let e = count_auto(&p, &c).unwrap_err();
+    assert_eq!(e.exit_code(), 2);
+    assert!(e.to_string().contains("weights too large"), "{e}");
 }
