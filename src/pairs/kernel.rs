@@ -13,9 +13,10 @@
 //! Kernels side by side, all bitwise equal: `leaf_ref` (plain loops, binary-search bin, i128
 //! adds), `leaf_fast` (chunks of 4 or 8 lanes: a branch-free arithmetic pass that
 //! auto-vectorises, then a table bin lookup with one exact compare), compiled for AVX2 or as
-//! portable code, and the AVX-512 kernel in `simd512` (flat and periodic metrics without mu
-//! bins: gathers for the bin lookup and per-lane integer histograms updated by scatter, so no
-//! two lanes ever touch the same slot). The instruction set is chosen at run time.
+//! portable code, and the AVX-512 kernel in `simd512` (counts without mu bins in flat, periodic
+//! and, for s_max small against R, curved metrics: vector arithmetic, then branch-free scalar
+//! adds into per-lane integer histograms, so no two lanes ever touch the same slot). The
+//! instruction set is chosen at run time.
 use super::counts::{PairCounts, FRAC_BITS};
 
 pub(crate) const FLAT: u8 = 0;

@@ -659,3 +659,24 @@ fn large_weights_fold_lanes_per_row_and_absurd_weights_are_refused() {
     assert_eq!(e.exit_code(), 2);
     assert!(e.to_string().contains("weights too large"), "{e}");
 }
+
+#[test]
+fn series_branch_of_s_of_q_matches_libm() {
+    // asin / asinh from their Taylor series (chord/2R <= 0.05) against libm, to 2 ulp
+    // (common practice, no source: both are within about 1 ulp of the true value)
+    let r = 1000.0;
+    for k in 1..=2000 {
+        let x = 0.05 * k as f64 / 2000.0;
+        let q = (2.0 * r * x).powi(2);
+        let c = q.sqrt() / (2.0 * r);
+        for (got, want) in [
+            (s_of_q::<CLO>(q, r), 2.0 * r * c.asin()),
+            (s_of_q::<OPE>(q, r), 2.0 * r * c.asinh()),
+        ] {
+            assert!(
+                (got - want).abs() <= 2.0 * f64::EPSILON * want,
+                "x = {x}: {got} vs {want}"
+            );
+        }
+    }
+}
