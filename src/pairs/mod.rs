@@ -172,8 +172,8 @@ fn geo_of(metric: &Metric) -> Geo {
     }
 }
 
-/// Check the configuration and build the q-space binner.
-fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
+/// Check the shard, binning and metric settings (everything but the q-space edges).
+fn check_metric(cfg: &CountConfig) -> crate::Result<Geo> {
     let b = &cfg.binning;
     let (k, n) = cfg.shard;
     if n == 0 || k >= n {
@@ -217,7 +217,13 @@ fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
             }
         }
     }
-    let geo = geo_of(&cfg.metric);
+    Ok(geo_of(&cfg.metric))
+}
+
+/// Check the configuration and build the q-space binner.
+fn check_config(cfg: &CountConfig) -> crate::Result<(Geo, Binner)> {
+    let geo = check_metric(cfg)?;
+    let b = &cfg.binning;
     let qe: Vec<f64> = b.s_edges.iter().map(|&s| geo.q_of_s(s)).collect();
     if qe
         .windows(2)
@@ -575,7 +581,7 @@ pub struct Indexed {
 impl Indexed {
     /// Validate and index `p` for counts with `cfg`'s metric, region count and mu binning.
     pub fn new(p: PointSet, name: &str, cfg: &CountConfig) -> crate::Result<Self> {
-        let (geo, _) = check_config(cfg)?;
+        let geo = check_metric(cfg)?;
         let pts = prepare(p, name, cfg, &geo)?;
         // the tree build uses the count's threads (the tree does not depend on them)
         let pool = build_pool(cfg.threads)?;

@@ -14,7 +14,7 @@
 use super::kernel::{
     leaf_ref, Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER,
 };
-use super::tree::{node_bounds, Node};
+use super::tree::box_bounds;
 use std::arch::x86_64::*;
 
 /// One leaf pair in metric K (flat, periodic, or curved when every counted pair takes the
@@ -57,7 +57,6 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
     let nreg = acc.nreg;
     let qlo = _mm512_set1_pd(bn.qlo());
     let qhi = _mm512_set1_pd(bn.qhi());
-    let qe0 = _mm512_set1_pd(bn.qlo());
     let inv_h = _mm512_set1_pd(bn.inv_h);
     let last = _mm512_set1_pd(bn.last_cell);
     let zero = _mm512_setzero_pd();
@@ -92,25 +91,12 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
     let mut tzs = [0i64; LANES];
     let mut bins = [0i64; LANES];
     let mut tws = [0i64; LANES];
-    let bnode = Node {
-        lo: lp.b_lo,
-        hi: lp.b_hi,
-        start: 0,
-        end: 0,
-        left: 0,
-        right: 0,
-    };
     for i in lp.a0..lp.a1 {
         if lp.q_cut.is_finite() {
             // rows whose point lies too far from the whole b box are skipped (exact: every
-            // pair q is >= the point-to-box bound, see `node_bounds`)
+            // pair q is >= the point-to-box bound, see `tree::node_bounds`)
             let p = [a.c[0][i], a.c[1][i], a.c[2][i], a.t_at::<K>(i)];
-            let pn = Node {
-                lo: p,
-                hi: p,
-                ..bnode
-            };
-            let qmin = node_bounds::<K>(&pn, &bnode, g.box_l, g.half_l).0;
+            let qmin = box_bounds::<K>(&p, &p, &lp.b_lo, &lp.b_hi, g.box_l, g.half_l).0;
             if qmin >= lp.q_cut {
                 continue;
             }
@@ -172,7 +158,7 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
             if m != 0 {
                 if !LIN {
                     let cf = _mm512_min_pd(
-                        _mm512_max_pd(_mm512_mul_pd(_mm512_sub_pd(q, qe0), inv_h), zero),
+                        _mm512_max_pd(_mm512_mul_pd(_mm512_sub_pd(q, qlo), inv_h), zero),
                         last,
                     );
                     let cell = _mm512_cvttpd_epi64(cf);

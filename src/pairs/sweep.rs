@@ -17,10 +17,10 @@
 //! are bitwise those of `count_auto` / `count_cross`; integer sums make the totals independent
 //! of the different tree, so each variant's counts equal a separate count bit for bit.
 use super::kernel::{
-    self, Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Quant, Simd, CLO, OPE,
-    PER,
+    self, Acc, Binner, DataFlags, Geo, KernelKind, LeafFn, LeafPair, Pts, Quant, Simd, CLO, FLAT,
+    OPE, PER,
 };
-use super::{check_config, permute, prepare, Binning, CountConfig, Metric};
+use super::{check_config, permute, prepare, tree, Binning, CountConfig, Metric};
 use super::{PairCounts, PointSet};
 use rayon::prelude::*;
 
@@ -231,9 +231,7 @@ fn split_rec(
 }
 
 /// Conservative [qmin, qmax] of q over all pairs of points from two 4-D boxes, for metric kind
-/// `kind`. Same argument as the single-fiducial engine: each coordinate difference lies in
-/// [dmin, dmax]; q adds + terms (spatial, and t for closed space) and subtracts the t term for
-/// open space; the operation order matches `pair_q` (spatial squares first, then t).
+/// `kind` (the single-fiducial engine's `tree::box_bounds`, chosen at run time per variant).
 fn box_bounds(
     kind: u8,
     g: &Geo,
@@ -242,36 +240,13 @@ fn box_bounds(
     blo: &[f64; 4],
     bhi: &[f64; 4],
 ) -> (f64, f64) {
-    let mut dmin = [0.0f64; 4];
-    let mut dmax = [0.0f64; 4];
-    for d in 0..4 {
-        let lo = blo[d] - ahi[d];
-        let hi = bhi[d] - alo[d];
-        if kind == PER && d < 3 {
-            let l = g.box_l;
-            dmin[d] = if lo <= 0.0 && hi >= 0.0 {
-                0.0
-            } else if lo > 0.0 {
-                lo.min(l - hi).max(0.0)
-            } else {
-                (-hi).min(lo + l).max(0.0)
-            };
-            dmax[d] = lo.abs().max(hi.abs()).min(g.half_l);
-        } else {
-            dmin[d] = lo.max(-hi).max(0.0);
-            dmax[d] = lo.abs().max(hi.abs());
-        }
+    let (l, hl) = (g.box_l, g.half_l);
+    match kind {
+        PER => tree::box_bounds::<PER>(alo, ahi, blo, bhi, l, hl),
+        CLO => tree::box_bounds::<CLO>(alo, ahi, blo, bhi, l, hl),
+        OPE => tree::box_bounds::<OPE>(alo, ahi, blo, bhi, l, hl),
+        _ => tree::box_bounds::<FLAT>(alo, ahi, blo, bhi, l, hl),
     }
-    let mut qmin = dmin[0] * dmin[0] + dmin[1] * dmin[1] + dmin[2] * dmin[2];
-    let mut qmax = dmax[0] * dmax[0] + dmax[1] * dmax[1] + dmax[2] * dmax[2];
-    if kind == CLO {
-        qmin += dmin[3] * dmin[3];
-        qmax += dmax[3] * dmax[3];
-    } else if kind == OPE {
-        qmin -= dmax[3] * dmax[3];
-        qmax -= dmin[3] * dmin[3];
-    }
-    (qmin, qmax)
 }
 
 /// One variant's prepared data.

@@ -197,11 +197,24 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option
 /// pad the pruning thresholds.
 #[inline]
 pub(crate) fn node_bounds<const K: u8>(a: &Node, b: &Node, l: f64, hl: f64) -> (f64, f64) {
+    box_bounds::<K>(&a.lo, &a.hi, &b.lo, &b.hi, l, hl)
+}
+
+/// `node_bounds` for boxes given by their corners (a point is a box with lo = hi).
+#[inline]
+pub(crate) fn box_bounds<const K: u8>(
+    alo: &[f64; 4],
+    ahi: &[f64; 4],
+    blo: &[f64; 4],
+    bhi: &[f64; 4],
+    l: f64,
+    hl: f64,
+) -> (f64, f64) {
     let mut dmin = [0.0f64; 4];
     let mut dmax = [0.0f64; 4];
     for d in 0..4 {
-        let lo = b.lo[d] - a.hi[d];
-        let hi = b.hi[d] - a.lo[d];
+        let lo = blo[d] - ahi[d];
+        let hi = bhi[d] - alo[d];
         if K == PER && d < 3 {
             // differences lie in (-L, L); distance to the nearest multiple of L
             dmin[d] = if lo <= 0.0 && hi >= 0.0 {
