@@ -449,6 +449,9 @@ pub(crate) struct Acc {
     /// Lane columns w and z written since the last lane flush.
     pub lanes_w: bool,
     pub lanes_z: bool,
+    /// Pair buffer of the AVX-512 kernel (empty until it first runs).
+    #[cfg(target_arch = "x86_64")]
+    pub buf: super::simd512::PairBuf,
     /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
     /// w1w2 = 1 exactly (quantised: 2^f), so its per-bin sum is the count times 2^f.
     pub unit_w: bool,
@@ -475,6 +478,8 @@ impl Acc {
             pending: 0,
             lanes_w: false,
             lanes_z: false,
+            #[cfg(target_arch = "x86_64")]
+            buf: Default::default(),
             unit_w: false,
         }
     }
@@ -803,7 +808,7 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
 }
 
 #[cfg(target_arch = "x86_64")]
-#[target_feature(enable = "avx512f,avx512dq")]
+#[target_feature(enable = "avx512f,avx512dq,popcnt")]
 unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
     b: &Pts,
@@ -877,6 +882,7 @@ impl Simd {
         {
             if std::arch::is_x86_feature_detected!("avx512f")
                 && std::arch::is_x86_feature_detected!("avx512dq")
+                && std::arch::is_x86_feature_detected!("popcnt")
             {
                 return Simd::Avx512;
             }
@@ -986,10 +992,22 @@ mod flag_tests {
 
     #[test]
     fn specialised_kernels_are_bitwise_reference() {
-        let edges: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
-        for metric in [Metric::Euclidean, Metric::Periodic { box_size: 300.0 }] {
-            for (uw, zz) in [(true, true), (true, false), (false, true)] {
-                for (n_mu, n_regions) in [(1, 0), (3, 3)] {
+        // linear edges (bins rebuilt in registers) and uneven ones (lookup table); curved
+        // metrics with s_max << R take the series branch of the AVX-512 kernel
+        let lin: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
+        let uneven: Vec<f64> = (0..=16).map(|i| 2.0 + 0.4 * (i * i) as f64).collect();
+        let metrics = [
+            Metric::Euclidean,
+            Metric::Periodic { box_size: 300.0 },
+            Metric::Closed { radius: 1e4 },
+            Metric::Open { radius: 1e4 },
+        ];
+        for (metric, edges) in metrics
+            .into_iter()
+            .flat_map(|m| [(m, lin.clone()), (m, uneven.clone())])
+        {
+            for (uw, zz) in [(true, true), (true, false), (false, true), (false, false)] {
+                for (n_mu, n_regions) in [(1, 0), (1, 3), (3, 3)] {
                     let c = CountConfig {
                         binning: Binning::new(edges.clone(), n_mu).unwrap(),
                         metric,
