@@ -188,12 +188,12 @@ unsafe fn live_rows<const K: u8>(a: &Pts, r0: usize, lanes: u8, lp: &LeafPair, g
     let dims = if K == CLO || K == OPE { 4 } else { 3 };
     let mut dmin = [zero; 4];
     let mut dmax3 = zero;
-    for d in 0..dims {
+    for (d, dmin_d) in dmin.iter_mut().enumerate().take(dims) {
         let p = _mm512_maskz_loadu_pd(lanes, a.c[d].as_ptr().add(r0));
         let lo = _mm512_sub_pd(_mm512_set1_pd(lp.b_lo[d]), p);
         let hi = _mm512_sub_pd(_mm512_set1_pd(lp.b_hi[d]), p);
         let neg_hi = _mm512_sub_pd(zero, hi);
-        dmin[d] = if K == PER {
+        *dmin_d = if K == PER {
             // distance to the nearest multiple of L: 0 inside, else the shorter way round
             let right = _mm512_min_pd(lo, _mm512_sub_pd(l, hi));
             let left = _mm512_min_pd(neg_hi, _mm512_add_pd(lo, l));
