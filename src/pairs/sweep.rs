@@ -372,12 +372,20 @@ impl SWalker<'_> {
             if self.is_leaf_pair(&t) {
                 let a = self.ta.nodes[t.a as usize];
                 let b = self.tb.nodes[t.b as usize];
-                let lp = LeafPair::plain(a.start, a.end, b.start, b.end, t.same);
+                let nv = self.tb.nv;
                 let mut m = alive;
                 while m != 0 {
                     let k = m.trailing_zeros() as usize;
                     m &= m - 1;
                     let v = &self.vars[k];
+                    // rows farther than the variant's cut from its b leaf box are skipped
+                    let ib = t.b as usize * nv + k;
+                    let lp = LeafPair {
+                        b_lo: self.tb.lo[ib],
+                        b_hi: self.tb.hi[ib],
+                        q_cut: if t.same { f64::INFINITY } else { v.q_hi_pad },
+                        ..LeafPair::plain(a.start, a.end, b.start, b.end, t.same)
+                    };
                     let pb = v.pb.as_ref().unwrap_or(&v.pa);
                     (v.leaf)(&v.pa, pb, lp, &v.geo, &v.bn, &mut accs[k]);
                 }
