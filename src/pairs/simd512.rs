@@ -258,6 +258,7 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
     let one = _mm512_set1_epi64(1);
     let trash_v = _mm512_set1_epi64(bn.nb as i64);
     let (qp, wp, zp) = (buf.q.as_ptr(), buf.w.as_ptr(), buf.z.as_ptr());
+    let regions = acc.nreg > 0;
     let mut cells = [0i64; LANES];
     let mut qs = [0f64; LANES];
     let mut tss = [0i64; LANES];
@@ -339,8 +340,10 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
                 tss.as_mut_ptr().cast(),
                 _mm512_cvtpd_epi64(_mm512_mul_pd(ts, scale_s)),
             );
-            let tw = _mm512_cvtpd_epi64(_mm512_mul_pd(ww, scale_w));
-            _mm512_storeu_si512(tws.as_mut_ptr().cast(), tw);
+            if !UW || regions {
+                let tw = _mm512_cvtpd_epi64(_mm512_mul_pd(ww, scale_w));
+                _mm512_storeu_si512(tws.as_mut_ptr().cast(), tw);
+            }
             if !ZZ {
                 let zz = _mm512_maskz_loadu_pd(lm, zp.add(e));
                 let tz = if UW { zz } else { _mm512_mul_pd(ww, zz) };
@@ -369,7 +372,7 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
                     *lzp.add(x) += tzs[k];
                 }
             }
-            if acc.nreg > 0 {
+            if regions {
                 for k in 0..rem.min(LANES) {
                     let ij = buf.ij[e + k];
                     let (i, j) = ((ij >> 32) as usize, (ij & 0xffff_ffff) as usize);
