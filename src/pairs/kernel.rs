@@ -421,6 +421,9 @@ impl Quant {
     }
 }
 
+/// Bytes of the AVX-512 kernel's pair buffer (four columns of `simd512::BUF` + one vector).
+pub(crate) const PAIR_BUF_BYTES: usize = 4 * 8 * (2048 + LANES);
+
 /// Lanes of the SIMD lane histograms (slot `bin * LANES + lane`).
 pub(crate) const LANES: usize = 8;
 
@@ -486,7 +489,8 @@ impl Acc {
 
     /// Bytes held by one accumulator (for the memory estimate).
     pub fn bytes(nb: usize, nreg: usize) -> u64 {
-        (nb * (8 + 3 * 16) + (nb + 1) * 4 * 8 * LANES + nb * nreg * 33) as u64
+        // totals, lane histograms, region sums, and the AVX-512 kernel's pair buffer
+        (nb * (8 + 3 * 16) + (nb + 1) * 4 * 8 * LANES + nb * nreg * 33 + PAIR_BUF_BYTES) as u64
     }
 
     #[inline(always)]

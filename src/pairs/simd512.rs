@@ -23,7 +23,8 @@ use std::arch::x86_64::*;
 
 /// Pairs the buffer collects before they are accumulated (one more vector of slack takes the
 /// full-width stores of compressed lanes).
-const BUF: usize = 2048;
+pub(crate) const BUF: usize = 2048;
+const _: () = assert!(super::kernel::PAIR_BUF_BYTES == 4 * 8 * (BUF + LANES));
 
 /// The pair buffer of stage 1 (kept in the task's accumulator so it is allocated once).
 #[derive(Default)]
