@@ -10,7 +10,7 @@ use serde::Serialize;
 use std::path::{Path, PathBuf};
 
 /// Rows read per chunk: bounds temporary memory for 1e8-row files to the output columns.
-pub const CHUNK_ROWS: usize = 1 << 20;
+pub const CHUNK_ROWS: usize = 1 << 16;
 
 /// Which columns hold what. Names match case-insensitively.
 #[derive(Debug, Clone, Serialize)]
