@@ -6,7 +6,7 @@
 //! scripts/bench_reference.py. A benchmark, not a test: nothing here asserts on timings.
 use crate::catalog::{read_catalogue, ColumnMap, RowFilter};
 use crate::cosmology::{Cosmology, DistanceTable};
-use crate::geometry::{positions, Curvature};
+use crate::geometry::{positions, take_positions, Curvature};
 use crate::pairs::{self, Binning, CountConfig, Metric, PairCounts, PointSet};
 use crate::{Error, Result};
 use rand::{Rng, SeedableRng};
@@ -229,8 +229,9 @@ fn config(metric: Metric, threads: usize) -> Result<CountConfig> {
 
 /// Read a file through the library and convert it to a point set.
 fn load(path: &Path, map: &ColumnMap, table: Option<&DistanceTable>) -> Result<PointSet> {
-    let cat = read_catalogue(path, map, &RowFilter::default())?;
-    let pos = positions(&cat, table)?;
+    let mut cat = read_catalogue(path, map, &RowFilter::default())?;
+    // reuse the catalogue's columns: the catalogue and the point set never both exist
+    let pos = take_positions(&mut cat, table)?;
     Ok(PointSet {
         x: pos.x,
         y: pos.y,

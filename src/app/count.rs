@@ -8,7 +8,7 @@
 use crate::catalog::{file_sha256, read_catalogue, Catalogue, CatalogueKind, ColumnMap, RowFilter};
 use crate::cosmology::{Cosmology, DistanceTable};
 use crate::estimator::{auto_norm, cross_norm, split_auto_norm, PairNorm, WeightSums};
-use crate::geometry::{positions, Curvature};
+use crate::geometry::{take_positions, Curvature};
 use crate::pairs::{self, from_fixed, Binning, CountConfig, Metric, PairCounts, PointSet};
 use crate::report::{ecsv, json, npy, space};
 use crate::{Error, Result};
@@ -303,6 +303,43 @@ impl Prepared {
     }
 }
 
+impl Prepared {
+    /// Count every piece in order, like `count_piece` on each, but indexing each catalogue
+    /// once from its moved point set: `count_piece` copies a catalogue per piece, so the
+    /// catalogues would exist twice at the peak. Split RR needs the randoms in file order for
+    /// its subsets, so they are then kept and their index is built from a copy.
+    pub fn count_all(mut self, shard: (usize, usize)) -> Result<(CountHeader, Vec<PairCounts>)> {
+        let cfg = CountConfig {
+            shard,
+            ..self.cfg.clone()
+        };
+        let split = self.header.meta.rr_splits > 1;
+        let data = pairs::Indexed::new(std::mem::take(&mut self.data), "catalogue", &cfg)?;
+        let randoms = match self.randoms.as_mut() {
+            Some(r) => {
+                let r = if split { r.clone() } else { std::mem::take(r) };
+                Some(pairs::Indexed::new(r, "catalogue B", &cfg)?)
+            }
+            None => None,
+        };
+        let ir = || {
+            randoms
+                .as_ref()
+                .ok_or_else(|| Error::input("this count has no randoms"))
+        };
+        let mut counts = Vec::with_capacity(self.header.pieces.len());
+        for &piece in &self.header.pieces {
+            counts.push(match piece {
+                Piece::Dd => pairs::count_auto_indexed(&data, &cfg)?,
+                Piece::Dr => pairs::count_cross_indexed(&data, ir()?, &cfg)?,
+                Piece::Rr(_) if !split => pairs::count_auto_indexed(ir()?, &cfg)?,
+                Piece::Rr(_) => self.count_piece(piece, shard)?,
+            });
+        }
+        Ok((self.header, counts))
+    }
+}
+
 /// Build the states from a header and each piece's (complete) counts, in `header.pieces` order.
 pub fn assemble(header: &CountHeader, counts: Vec<PairCounts>) -> Result<Vec<CountState>> {
     if counts.len() != header.pieces.len() {
@@ -366,16 +403,12 @@ pub fn run(opt: &CountOptions) -> Result<CountOutcome> {
         "the counts folder",
         folder_bytes_estimate(pairings, &opt.binning, p.cfg.n_regions),
     )?;
-    let counts = p
-        .header
-        .pieces
-        .iter()
-        .map(|&piece| p.count_piece(piece, opt.shard))
-        .collect::<Result<Vec<_>>>()?;
+    let (memory_estimate, messages) = (p.memory_estimate, p.messages.clone());
+    let (header, counts) = p.count_all(opt.shard)?;
     Ok(CountOutcome {
-        states: assemble(&p.header, counts)?,
-        memory_estimate: p.memory_estimate,
-        messages: p.messages,
+        states: assemble(&header, counts)?,
+        memory_estimate,
+        messages,
     })
 }
 
@@ -386,8 +419,8 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     if opt.rr_splits == 0 {
         return Err(Error::input("--rr-splits must be >= 1"));
     }
-    let data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
-    let randoms = opt
+    let mut data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
+    let mut randoms = opt
         .randoms
         .as_ref()
         .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
@@ -540,17 +573,6 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
         reg_r.clear();
     }
 
-    let wd = WeightSums::from_weights(&data.w, &reg_d, n_regions)?;
-    let pd = point_set(&data, positions(&data, table.as_ref())?, reg_d);
-    let pr = match &randoms {
-        Some(r) => Some(point_set(r, positions(r, table.as_ref())?, reg_r)),
-        None => None,
-    };
-    let wr = pr
-        .as_ref()
-        .map(|p| WeightSums::from_weights(&p.w, &p.region, n_regions))
-        .transpose()?;
-
     if let Some(r) = randoms.as_ref().filter(|_| data.kind == CatalogueKind::Sky) {
         let (frac, n_out, cells) = uncovered_fraction(&data, r);
         if frac > COVERAGE_WARN_FRACTION {
@@ -564,6 +586,22 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
             ));
         }
     }
+    // the positions take over the catalogues' position columns (no second copy); only the
+    // weights, regions and row counts of the catalogues are read after this
+    let wd = WeightSums::from_weights(&data.w, &reg_d, n_regions)?;
+    let pos = take_positions(&mut data, table.as_ref())?;
+    let pd = point_set(&data, pos, reg_d);
+    let pr = match randoms.as_mut() {
+        Some(r) => {
+            let pos = take_positions(r, table.as_ref())?;
+            Some(point_set(r, pos, reg_r))
+        }
+        None => None,
+    };
+    let wr = pr
+        .as_ref()
+        .map(|p| WeightSums::from_weights(&p.w, &p.region, n_regions))
+        .transpose()?;
     let extent = max_extent(std::iter::once(&pd).chain(pr.as_ref()));
     if box_size.is_none() && opt.binning.s_max() > extent {
         messages.push(format!(

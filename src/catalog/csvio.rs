@@ -85,9 +85,11 @@ impl ColumnSource for CsvSource {
     }
     fn prepare(&mut self, wanted: &[usize]) -> Result<()> {
         let mut rdr = reader(&self.path)?;
+        let file_len = std::fs::metadata(&self.path).map_or(0, |m| m.len());
         let mut cols: Vec<Vec<f64>> = vec![Vec::new(); wanted.len()];
         let mut rec = csv::StringRecord::new();
         let mut row = 0usize;
+        let mut first_byte = 0u64;
         loop {
             match rdr.read_record(&mut rec) {
                 Ok(false) => break,
@@ -95,6 +97,16 @@ impl ColumnSource for CsvSource {
                 Err(e) => return Err(csv_err(&self.path, e)),
             }
             row += 1;
+            let at = rec.position().map_or(0, |p| p.byte());
+            if row == 1 {
+                first_byte = at;
+            } else if row == SAMPLE_ROWS + 1 {
+                let extra = rows_estimate(file_len, first_byte, at, SAMPLE_ROWS);
+                // a failed reservation (address space) leaves the usual growth
+                for c in cols.iter_mut() {
+                    let _ = c.try_reserve_exact(extra);
+                }
+            }
             let line = rec.position().map_or(0, |p| p.line());
             for (k, &ci) in wanted.iter().enumerate() {
                 let field = rec.get(ci).unwrap_or("");
@@ -110,9 +122,18 @@ impl ColumnSource for CsvSource {
         }
         self.n_rows = row;
         for (k, &ci) in wanted.iter().enumerate() {
+            cols[k].shrink_to_fit();
             self.parsed[ci] = Some(std::mem::take(&mut cols[k]));
         }
         Ok(())
+    }
+    fn whole_columns(&self) -> bool {
+        true
+    }
+    fn take_column(&mut self, idx: usize) -> Result<Vec<f64>> {
+        self.parsed[idx]
+            .take()
+            .ok_or_else(|| Error::other("CSV column taken before prepare or twice"))
     }
     fn read_f64(&mut self, idx: usize, start: usize, end: usize) -> Result<Vec<f64>> {
         let col = self.parsed[idx]
@@ -120,6 +141,20 @@ impl ColumnSource for CsvSource {
             .ok_or_else(|| Error::other("CSV column read before prepare"))?;
         Ok(col[start..end].to_vec())
     }
+}
+
+/// Rows sampled before the columns are sized for the whole file.
+const SAMPLE_ROWS: usize = 1024;
+
+/// Rows still to come after `sampled` rows that started at byte `first` and ended at byte `at`,
+/// from the file size, with 1/8 to spare for longer rows later on. The columns are reserved for
+/// that many so they do not grow by doubling (each doubling copies a column and leaves the old
+/// one behind in the allocator): reserved pages that are never written cost no memory, and
+/// `shrink_to_fit` returns them; a file whose later rows are much longer still grows as usual.
+pub(crate) fn rows_estimate(file_len: u64, first: u64, at: u64, sampled: usize) -> usize {
+    let per_row = (at.saturating_sub(first) / sampled as u64).max(1);
+    let rest = file_len.saturating_sub(at) / per_row;
+    usize::try_from(rest + rest / 8 + 16).unwrap_or(usize::MAX)
 }
 
 /// Numbers as written by people and programs: also "nan", "inf" (rejected later by validation).

@@ -10,7 +10,7 @@ use serde::Serialize;
 use std::path::{Path, PathBuf};
 
 /// Rows read per chunk: bounds temporary memory for 1e8-row files to the output columns.
-pub const CHUNK_ROWS: usize = 1 << 20;
+pub const CHUNK_ROWS: usize = 1 << 16;
 
 /// Which columns hold what. Names match case-insensitively.
 #[derive(Debug, Clone, Serialize)]
@@ -152,6 +152,16 @@ pub(crate) trait ColumnSource {
     fn is_integer(&self, idx: usize) -> bool;
     /// Called once with the columns that will be read, before any `read_f64`.
     fn prepare(&mut self, wanted: &[usize]) -> Result<()>;
+    /// Whether `take_column` hands over whole parsed columns (after `prepare`).
+    fn whole_columns(&self) -> bool {
+        false
+    }
+    /// Move out the whole parsed column `idx` (readers with `whole_columns`).
+    fn take_column(&mut self, _idx: usize) -> Result<Vec<f64>> {
+        Err(Error::other(
+            "this reader has no parsed columns to hand over",
+        ))
+    }
 }
 
 /// Read and validate a catalogue.
@@ -235,99 +245,26 @@ fn assemble(
         )));
     }
 
-    let mut out = Catalogue {
-        path: path.to_path_buf(),
+    let check = RowCheck {
+        path,
+        cols: &cols,
+        pos_idx: &pos_idx,
+        w_idx: &w_idx,
+        r_idx,
         kind: map.kind,
-        pos: [
-            Vec::with_capacity(n),
-            Vec::with_capacity(n),
-            Vec::with_capacity(n),
-        ],
-        w: Vec::with_capacity(n),
-        region: r_idx.map(|_| Vec::with_capacity(n)),
-        rows_in_file: n,
-        rows_filtered: 0,
-        ra_wrapped: 0,
-        available_columns: cols.clone(),
+        filter,
     };
-    let mut start = 0;
-    while start < n {
-        let end = (start + CHUNK_ROWS).min(n);
-        let p: Vec<Vec<f64>> = pos_idx
-            .iter()
-            .map(|&i| src.read_f64(i, start, end))
-            .collect::<Result<_>>()?;
-        let ws: Vec<Vec<f64>> = w_idx
-            .iter()
-            .map(|&i| src.read_f64(i, start, end))
-            .collect::<Result<_>>()?;
-        let reg = r_idx.map(|i| src.read_f64(i, start, end)).transpose()?;
-        for j in 0..end - start {
-            let row = start + j + 1; // 1-based data row
-            let bad = |col: usize, what: &str, v: f64| {
-                Error::input(format!(
-                    "{}: row {row}, column '{}': {what} (value {v})",
-                    path.display(),
-                    cols[col]
-                ))
-            };
-            for (k, &ci) in pos_idx.iter().enumerate() {
-                if !p[k][j].is_finite() {
-                    return Err(bad(ci, "not a finite number", p[k][j]));
-                }
-            }
-            let mut w = 1.0;
-            for (k, &ci) in w_idx.iter().enumerate() {
-                let v = ws[k][j];
-                if !v.is_finite() {
-                    return Err(bad(ci, "weight is not a finite number", v));
-                }
-                if v < 0.0 {
-                    return Err(bad(ci, "negative weight", v));
-                }
-                w *= v;
-            }
-            let mut a = p[0][j];
-            let (b, c) = (p[1][j], p[2][j]);
-            if map.kind == CatalogueKind::Sky {
-                if b.abs() > 90.0 {
-                    return Err(bad(pos_idx[1], "declination outside [-90, 90] degrees", b));
-                }
-                if c <= 0.0 {
-                    return Err(bad(pos_idx[2], "redshift must be > 0", c));
-                }
-                if !(0.0..360.0).contains(&a) {
-                    a = a.rem_euclid(360.0);
-                    if a >= 360.0 {
-                        a = 0.0;
-                    }
-                    out.ra_wrapped += 1;
-                }
-                if filter.z_min.is_some_and(|lo| c < lo) || filter.z_max.is_some_and(|hi| c >= hi) {
-                    out.rows_filtered += 1;
-                    continue;
-                }
-            }
-            let label = match (&reg, r_idx) {
-                (Some(r), Some(ci)) => {
-                    let v = r[j];
-                    if v < 0.0 || v > u32::MAX as f64 || v.fract() != 0.0 {
-                        return Err(bad(ci, "region label must be a non-negative integer", v));
-                    }
-                    Some(v as u32)
-                }
-                _ => None,
-            };
-            out.pos[0].push(a);
-            out.pos[1].push(b);
-            out.pos[2].push(c);
-            out.w.push(w);
-            if let (Some(dst), Some(l)) = (out.region.as_mut(), label) {
-                dst.push(l);
-            }
-        }
-        start = end;
-    }
+    let distinct = wanted
+        .iter()
+        .enumerate()
+        .all(|(i, c)| !wanted[..i].contains(c));
+    let mut out = if distinct && src.whole_columns() {
+        assemble_in_place(src, &check, &wanted, n)?
+    } else {
+        assemble_chunked(src, &check, n)?
+    };
+    out.path = path.to_path_buf();
+    out.available_columns = cols;
     if out.is_empty() {
         return Err(Error::input(format!(
             "{}: no rows left after the redshift filter ({} of {} rows removed)",
@@ -342,6 +279,233 @@ fn assemble(
             path.display()
         )));
     }
+    Ok(out)
+}
+
+/// Validation of one row, shared by the chunked and the in-place readers so both report the
+/// same first error (rows in order; within a row positions, weights, sky ranges, region).
+struct RowCheck<'a> {
+    path: &'a Path,
+    cols: &'a [String],
+    pos_idx: &'a [usize],
+    w_idx: &'a [usize],
+    r_idx: Option<usize>,
+    kind: CatalogueKind,
+    filter: &'a RowFilter,
+}
+
+/// A row as stored: positions (RA wrapped), product of the weights, region label.
+type Kept = ([f64; 3], f64, Option<u32>);
+
+impl RowCheck<'_> {
+    /// Check data row `row` (1-based) with positions `p`, weight factors `wf(k)` and region
+    /// value `reg`; None when the user's filter removes it. Counts RA wraps in `wrapped`.
+    fn check(
+        &self,
+        row: usize,
+        p: [f64; 3],
+        wf: impl Fn(usize) -> f64,
+        reg: Option<f64>,
+        wrapped: &mut usize,
+    ) -> Result<Option<Kept>> {
+        let bad = |col: usize, what: &str, v: f64| {
+            Error::input(format!(
+                "{}: row {row}, column '{}': {what} (value {v})",
+                self.path.display(),
+                self.cols[col]
+            ))
+        };
+        for (k, &ci) in self.pos_idx.iter().enumerate() {
+            if !p[k].is_finite() {
+                return Err(bad(ci, "not a finite number", p[k]));
+            }
+        }
+        let mut w = 1.0;
+        for (k, &ci) in self.w_idx.iter().enumerate() {
+            let v = wf(k);
+            if !v.is_finite() {
+                return Err(bad(ci, "weight is not a finite number", v));
+            }
+            if v < 0.0 {
+                return Err(bad(ci, "negative weight", v));
+            }
+            w *= v;
+        }
+        let [mut a, b, c] = p;
+        if self.kind == CatalogueKind::Sky {
+            if b.abs() > 90.0 {
+                return Err(bad(
+                    self.pos_idx[1],
+                    "declination outside [-90, 90] degrees",
+                    b,
+                ));
+            }
+            if c <= 0.0 {
+                return Err(bad(self.pos_idx[2], "redshift must be > 0", c));
+            }
+            if !(0.0..360.0).contains(&a) {
+                a = a.rem_euclid(360.0);
+                if a >= 360.0 {
+                    a = 0.0;
+                }
+                *wrapped += 1;
+            }
+            let f = self.filter;
+            if f.z_min.is_some_and(|lo| c < lo) || f.z_max.is_some_and(|hi| c >= hi) {
+                return Ok(None);
+            }
+        }
+        let label = match (reg, self.r_idx) {
+            (Some(v), Some(ci)) => {
+                if v < 0.0 || v > u32::MAX as f64 || v.fract() != 0.0 {
+                    return Err(bad(ci, "region label must be a non-negative integer", v));
+                }
+                Some(v as u32)
+            }
+            _ => None,
+        };
+        Ok(Some(([a, b, c], w, label)))
+    }
+}
+
+/// An empty catalogue of `kind` with `n` rows in the file, to be filled by a reader path.
+fn blank(kind: CatalogueKind, n: usize) -> Catalogue {
+    Catalogue {
+        path: PathBuf::new(),
+        kind,
+        pos: [Vec::new(), Vec::new(), Vec::new()],
+        w: Vec::new(),
+        region: None,
+        rows_in_file: n,
+        rows_filtered: 0,
+        ra_wrapped: 0,
+        available_columns: Vec::new(),
+    }
+}
+
+/// Read `CHUNK_ROWS` rows at a time into output columns sized for all `n` rows (FITS: the
+/// file, not memory, holds the source columns).
+fn assemble_chunked(src: &mut dyn ColumnSource, check: &RowCheck, n: usize) -> Result<Catalogue> {
+    let mut out = blank(check.kind, n);
+    out.pos = [
+        Vec::with_capacity(n),
+        Vec::with_capacity(n),
+        Vec::with_capacity(n),
+    ];
+    out.w = Vec::with_capacity(n);
+    out.region = check.r_idx.map(|_| Vec::with_capacity(n));
+    let mut start = 0;
+    while start < n {
+        let end = (start + CHUNK_ROWS).min(n);
+        let p: Vec<Vec<f64>> = check
+            .pos_idx
+            .iter()
+            .map(|&i| src.read_f64(i, start, end))
+            .collect::<Result<_>>()?;
+        let ws: Vec<Vec<f64>> = check
+            .w_idx
+            .iter()
+            .map(|&i| src.read_f64(i, start, end))
+            .collect::<Result<_>>()?;
+        let reg = check
+            .r_idx
+            .map(|i| src.read_f64(i, start, end))
+            .transpose()?;
+        for j in 0..end - start {
+            let row = start + j + 1; // 1-based data row
+            let pj = [p[0][j], p[1][j], p[2][j]];
+            let kept = check.check(
+                row,
+                pj,
+                |k| ws[k][j],
+                reg.as_ref().map(|r| r[j]),
+                &mut out.ra_wrapped,
+            )?;
+            let Some((q, w, label)) = kept else {
+                out.rows_filtered += 1;
+                continue;
+            };
+            for (dst, v) in out.pos.iter_mut().zip(q) {
+                dst.push(v);
+            }
+            out.w.push(w);
+            if let (Some(dst), Some(l)) = (out.region.as_mut(), label) {
+                dst.push(l);
+            }
+        }
+        start = end;
+    }
+    Ok(out)
+}
+
+/// Readers that hold whole parsed columns (CSV) hand them over: rows are validated and
+/// compacted in place, so the position columns (and the first weight column) become the
+/// catalogue's without a copy. Peak: the parsed columns plus the weight and region outputs.
+fn assemble_in_place(
+    src: &mut dyn ColumnSource,
+    check: &RowCheck,
+    wanted: &[usize],
+    n: usize,
+) -> Result<Catalogue> {
+    let mut taken: Vec<Vec<f64>> = wanted
+        .iter()
+        .map(|&i| src.take_column(i))
+        .collect::<Result<_>>()?;
+    if taken.iter().any(|c| c.len() != n) {
+        return Err(Error::other("reader: parsed column of the wrong length"));
+    }
+    let reg = check.r_idx.and_then(|_| taken.pop());
+    let mut ws = taken.split_off(3);
+    let [mut a, mut b, mut c]: [Vec<f64>; 3] = taken
+        .try_into()
+        .map_err(|_| Error::other("reader: three position columns expected"))?;
+    // the product of the weights goes into the first weight column (rows only move down)
+    let mut w_new = if ws.is_empty() {
+        Vec::with_capacity(n)
+    } else {
+        Vec::new()
+    };
+    let mut labels = reg.as_ref().map(|_| Vec::with_capacity(n));
+    let mut out = blank(check.kind, n);
+    let mut kept = 0;
+    for j in 0..n {
+        let res = check.check(
+            j + 1,
+            [a[j], b[j], c[j]],
+            |k| ws[k][j],
+            reg.as_ref().map(|r| r[j]),
+            &mut out.ra_wrapped,
+        )?;
+        let Some((q, w, label)) = res else {
+            out.rows_filtered += 1;
+            continue;
+        };
+        (a[kept], b[kept], c[kept]) = (q[0], q[1], q[2]);
+        match ws.first_mut() {
+            Some(w0) => w0[kept] = w,
+            None => w_new.push(w),
+        }
+        if let (Some(dst), Some(l)) = (labels.as_mut(), label) {
+            dst.push(l);
+        }
+        kept += 1;
+    }
+    drop(reg);
+    let w = if ws.is_empty() {
+        w_new
+    } else {
+        ws.truncate(1);
+        ws.pop().unwrap_or_default()
+    };
+    let mut cols = [a, b, c, w];
+    for v in cols.iter_mut() {
+        v.truncate(kept);
+        v.shrink_to_fit();
+    }
+    let [a, b, c, w] = cols;
+    out.pos = [a, b, c];
+    out.w = w;
+    out.region = labels;
     Ok(out)
 }
 
@@ -477,4 +641,162 @@ pub fn summarise(cat: &Catalogue, map: &ColumnMap) -> Result<Summary> {
             .map(|r| r.iter().max().map_or(0, |&m| m as usize + 1)),
         validation: "all rows passed: finite values, |Dec| <= 90, z > 0, weights >= 0".into(),
     })
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use std::io::Write;
+
+    /// A sky CSV with `n` rows; row i's text length grows with i when `growing` (so the sampled
+    /// first rows underestimate the file) and shrinks otherwise. Returns the file and the
+    /// columns RA, DEC, Z, W1, W2, REG as written.
+    fn sky_csv(dir: &Path, n: usize, growing: bool, bad_row: Option<usize>) -> PathBuf {
+        let path = dir.join(format!("sky_{n}_{growing}.csv"));
+        let mut f = std::io::BufWriter::new(std::fs::File::create(&path).unwrap());
+        writeln!(f, "# comment line\nRA,DEC,Z,W1,W2,REG").unwrap();
+        for i in 0..n {
+            let k = if growing { i } else { n - i };
+            // digits grow with k: short rows at one end of the file, long ones at the other
+            let pad = "0".repeat(k * 20 / n);
+            let ra = if i % 7 == 0 {
+                360.5
+            } else {
+                (i % 360) as f64 + 0.25
+            };
+            let w1 = if bad_row == Some(i + 1) { -1.0 } else { 0.5 };
+            writeln!(
+                f,
+                "{ra}{},{},{}1,{w1},{},{}",
+                if ra.fract() == 0.0 { "" } else { &pad },
+                (i % 170) as f64 - 85.0,
+                0.3 + (i % 50) as f64 * 0.01,
+                1.0 + (i % 3) as f64,
+                i % 5
+            )
+            .unwrap();
+        }
+        f.flush().unwrap();
+        path
+    }
+
+    /// Simple reference: split each data line on commas and parse.
+    fn reference(path: &Path) -> Vec<Vec<f64>> {
+        let text = std::fs::read_to_string(path).unwrap();
+        let mut cols = vec![Vec::new(); 6];
+        for line in text.lines().filter(|l| !l.starts_with('#')).skip(1) {
+            for (c, v) in cols.iter_mut().zip(line.split(',')) {
+                c.push(v.parse::<f64>().unwrap());
+            }
+        }
+        cols
+    }
+
+    fn map() -> ColumnMap {
+        ColumnMap::sky(
+            "RA",
+            "DEC",
+            "Z",
+            vec!["W1".into(), "W2".into()],
+            Some("REG".into()),
+        )
+    }
+
+    /// Both reader paths on the same CSV source.
+    fn both_paths(path: &Path, filter: &RowFilter) -> (Result<Catalogue>, Result<Catalogue>) {
+        let run = |in_place: bool| {
+            let mut src = csvio::CsvSource::open(path)?;
+            let wanted = [0, 1, 2, 3, 4, 5];
+            src.prepare(&wanted)?;
+            let cols = src.columns().to_vec();
+            let check = RowCheck {
+                path,
+                cols: &cols,
+                pos_idx: &wanted[..3],
+                w_idx: &wanted[3..5],
+                r_idx: Some(5),
+                kind: CatalogueKind::Sky,
+                filter,
+            };
+            let n = src.n_rows();
+            if in_place {
+                assemble_in_place(&mut src, &check, &wanted, n)
+            } else {
+                assemble_chunked(&mut src, &check, n)
+            }
+        };
+        (run(true), run(false))
+    }
+
+    // The parsed columns are sized from the first rows (exactly, after shrinking) whether later
+    // rows are longer or shorter, and hold the values of a plain line-by-line parse.
+    #[test]
+    fn csv_columns_sized_and_equal_to_plain_parse() {
+        let dir = tempfile::tempdir().unwrap();
+        for growing in [true, false] {
+            for n in [5, 1024, 1025, 5000] {
+                let path = sky_csv(dir.path(), n, growing, None);
+                let want = reference(&path);
+                let mut src = csvio::CsvSource::open(&path).unwrap();
+                src.prepare(&[0, 1, 2, 3, 4, 5]).unwrap();
+                assert_eq!(src.n_rows(), n);
+                for (k, w) in want.iter().enumerate() {
+                    let got = src.take_column(k).unwrap();
+                    assert_eq!(got.capacity(), got.len(), "column {k}, n = {n}");
+                    assert_eq!(
+                        got.iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+                        w.iter().map(|x| x.to_bits()).collect::<Vec<_>>()
+                    );
+                }
+            }
+        }
+        // estimate: uniform rows of 10 bytes after a 7-byte header, 100 sampled
+        let est = csvio::rows_estimate(7 + 10 * 1000, 7, 7 + 10 * 100, 100);
+        assert!((900..=900 + 900 / 8 + 16).contains(&est), "{est}");
+    }
+
+    // The in-place path (CSV) against the chunked one (FITS and duplicated columns): same
+    // catalogue bit for bit, with RA wraps, weight products, regions and a redshift filter, and
+    // the same first error.
+    #[test]
+    fn in_place_assembly_matches_chunked() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = sky_csv(dir.path(), 3000, true, None);
+        for filter in [
+            RowFilter::default(),
+            RowFilter {
+                z_min: Some(0.4),
+                z_max: Some(0.7),
+            },
+        ] {
+            let (a, b) = both_paths(&path, &filter);
+            let (a, b) = (a.unwrap(), b.unwrap());
+            let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+            for k in 0..3 {
+                assert_eq!(bits(&a.pos[k]), bits(&b.pos[k]));
+            }
+            assert_eq!(bits(&a.w), bits(&b.w));
+            assert_eq!(a.region, b.region);
+            assert_eq!(
+                (a.rows_in_file, a.rows_filtered, a.ra_wrapped),
+                (b.rows_in_file, b.rows_filtered, b.ra_wrapped)
+            );
+            assert!(a.ra_wrapped > 0 && a.w.iter().any(|&w| w != 0.5));
+            assert!(a.pos.iter().all(|c| c.capacity() == c.len()));
+            if filter.z_min.is_some() {
+                assert!(a.rows_filtered > 0);
+            }
+        }
+        let bad = sky_csv(dir.path(), 2000, false, Some(1500));
+        let (a, b) = both_paths(&bad, &RowFilter::default());
+        let (ea, eb) = (a.unwrap_err().to_string(), b.unwrap_err().to_string());
+        assert_eq!(ea, eb);
+        assert!(
+            ea.contains("row 1500, column 'W1': negative weight"),
+            "{ea}"
+        );
+        // and through the public reader
+        let full = read_catalogue(&path, &map(), &RowFilter::default()).unwrap();
+        assert_eq!(full.len(), 3000);
+    }
 }

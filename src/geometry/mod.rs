@@ -160,6 +160,46 @@ pub fn positions(cat: &Catalogue, table: Option<&DistanceTable>) -> Result<Posit
     }
 }
 
+/// As `positions`, but moves the position columns out of `cat` (left empty; its weights,
+/// regions and counts stay) and reuses them, so converting costs at most one new column instead
+/// of a second set: Cartesian columns move over unchanged with an empty `redshift` (all zero,
+/// as `pairs::PointSet` reads it); sky RA and Dec columns are overwritten by x and y in place,
+/// z is the one new column, and the redshift column becomes `redshift`. Same values bit for bit
+/// as `positions`. On error the catalogue's position columns are lost.
+pub fn take_positions(cat: &mut Catalogue, table: Option<&DistanceTable>) -> Result<Positions> {
+    let [a, b, c] = std::mem::take(&mut cat.pos);
+    match cat.kind {
+        CatalogueKind::Cartesian => Ok(Positions {
+            x: a,
+            y: b,
+            z: c,
+            redshift: Vec::new(),
+        }),
+        CatalogueKind::Sky => {
+            let table =
+                table.ok_or_else(|| Error::other("sky catalogue needs a distance table"))?;
+            let h = table.cosmology().h;
+            let (mut x, mut y, redshift) = (a, b, c);
+            let mut z = Vec::with_capacity(redshift.len());
+            for (i, &zr) in redshift.iter().enumerate() {
+                let chi = table.comoving_radial(zr).ok_or_else(|| {
+                    Error::input(format!(
+                        "{}: row {}: redshift {zr} is beyond the distance table (z_max = {})",
+                        cat.path.display(),
+                        i + 1,
+                        table.z_max()
+                    ))
+                })? * h;
+                let u = unit_vector(x[i], y[i]);
+                x[i] = chi * u[0];
+                y[i] = chi * u[1];
+                z.push(chi * u[2]);
+            }
+            Ok(Positions { x, y, z, redshift })
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -311,5 +351,64 @@ mod tests {
             let (r2, d2) = sky_angles(unit_vector(ra, dec));
             assert!((r2 - ra).abs() < 1e-9 && (d2 - dec).abs() < 1e-9);
         }
+    }
+
+    fn catalogue(kind: CatalogueKind, pos: [Vec<f64>; 3]) -> Catalogue {
+        let n = pos[0].len();
+        Catalogue {
+            path: "cat.csv".into(),
+            kind,
+            pos,
+            w: vec![1.5; n],
+            region: None,
+            rows_in_file: n,
+            rows_filtered: 0,
+            ra_wrapped: 0,
+            available_columns: vec![],
+        }
+    }
+
+    // The column-reusing conversion against the copying one (our own simple version): same bits,
+    // Cartesian redshifts empty instead of zeros, weights left in the catalogue.
+    #[test]
+    fn take_positions_matches_positions() {
+        let table = DistanceTable::new(&Cosmology::planck18(), 3.0).unwrap();
+        let ra = vec![0.0, 12.5, 359.9, 180.0, 271.3];
+        let dec = vec![0.0, -89.5, 45.0, 89.9, -12.0];
+        let z = vec![0.01, 0.5, 1.2, 2.9, 0.7];
+        let mut sky = catalogue(CatalogueKind::Sky, [ra, dec, z]);
+        let want = positions(&sky, Some(&table)).unwrap();
+        let got = take_positions(&mut sky, Some(&table)).unwrap();
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        for (g, w) in [
+            (&got.x, &want.x),
+            (&got.y, &want.y),
+            (&got.z, &want.z),
+            (&got.redshift, &want.redshift),
+        ] {
+            assert_eq!(bits(g), bits(w));
+        }
+        assert!(sky.pos.iter().all(|c| c.is_empty()) && sky.w.len() == 5);
+
+        let mut cart = catalogue(
+            CatalogueKind::Cartesian,
+            [vec![1.0, -2.0], vec![3.0, 4.0], vec![5.0, 6.5]],
+        );
+        let want = positions(&cart, None).unwrap();
+        let got = take_positions(&mut cart, None).unwrap();
+        assert_eq!((got.x, got.y, got.z), (want.x, want.y, want.z));
+        assert!(got.redshift.is_empty() && want.redshift.iter().all(|&z| z == 0.0));
+
+        // beyond the table: the same error, naming file and row
+        let mut far = catalogue(
+            CatalogueKind::Sky,
+            [vec![1.0, 2.0], vec![3.0, 4.0], vec![0.5, 3.5]],
+        );
+        let e1 = positions(&far, Some(&table)).unwrap_err().to_string();
+        let e2 = take_positions(&mut far, Some(&table))
+            .unwrap_err()
+            .to_string();
+        assert_eq!(e1, e2);
+        assert!(e2.contains("cat.csv: row 2"), "{e2}");
     }
 }

@@ -248,6 +248,12 @@ fn prepare(p: PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Resu
     if n == 0 {
         return Err(crate::Error::input(format!("{name}: catalogue is empty")));
     }
+    if n > tree::MAX_POINTS {
+        return Err(crate::Error::resource(format!(
+            "{name}: {n} points; at most {} can be counted in one catalogue",
+            tree::MAX_POINTS
+        )));
+    }
     for (col, len) in [("y", p.y.len()), ("z", p.z.len()), ("w", p.w.len())] {
         if len != n {
             return Err(crate::Error::input(format!(
@@ -372,28 +378,67 @@ fn prepare(p: PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Resu
     Ok(pts)
 }
 
-/// Reorder points into tree order, one column at a time (the peak holds one extra column; in
-/// parallel the columns would cost a column per worker for a few per cent of the run time).
-fn permute(p: Pts, perm: &[usize]) -> Pts {
-    fn g<T: Copy>(v: Vec<T>, perm: &[usize]) -> Vec<T> {
-        if v.is_empty() {
-            v
-        } else {
-            perm.iter().map(|&i| v[i]).collect()
+/// Reorder points into tree order in place, one column at a time: no column is copied, the
+/// only scratch is one bit per point (the peak stays at the columns, the permutation and the
+/// tree).
+fn permute<I: PermIndex>(mut p: Pts, perm: &[I]) -> Pts {
+    let mut done = vec![0u64; perm.len().div_ceil(64)];
+    let Pts { c, f, w, z, reg } = &mut p;
+    for v in c.iter_mut().chain(f.iter_mut()).chain([w, z]) {
+        permute_in_place(v, perm, &mut done);
+    }
+    permute_in_place(reg, perm, &mut done);
+    p
+}
+
+/// `v[p] = old v[perm[p]]` for every p, following the cycles of `perm`; `done` (one bit per
+/// position, all clear on entry) marks filled positions and is cleared again on return. An
+/// empty `v` (a column the layout does not use) is left alone.
+fn permute_in_place<T: Copy, I: PermIndex>(v: &mut [T], perm: &[I], done: &mut [u64]) {
+    if v.is_empty() {
+        return;
+    }
+    debug_assert_eq!(v.len(), perm.len());
+    let seen = |d: &[u64], i: usize| d[i / 64] >> (i % 64) & 1 == 1;
+    for start in 0..v.len() {
+        if seen(done, start) {
+            continue;
+        }
+        // walk the cycle through `start`: each position takes the value its source still holds
+        let first = v[start];
+        let mut p = start;
+        loop {
+            done[p / 64] |= 1 << (p % 64);
+            let q = perm[p].index();
+            if q == start {
+                v[p] = first;
+                break;
+            }
+            v[p] = v[q];
+            p = q;
         }
     }
-    let Pts { c, f, w, z, reg } = p;
-    let [c0, c1, c2, c3] = c;
-    let [f0, f1, f2] = f;
-    let (c0, c1, c2, c3) = (g(c0, perm), g(c1, perm), g(c2, perm), g(c3, perm));
-    let (f0, f1, f2) = (g(f0, perm), g(f1, perm), g(f2, perm));
-    let (w, z, reg) = (g(w, perm), g(z, perm), g(reg, perm));
-    Pts {
-        c: [c0, c1, c2, c3],
-        f: [f0, f1, f2],
-        w,
-        z,
-        reg,
+    done.fill(0);
+}
+
+/// Simple reference for `permute_in_place`: gather into a new vector.
+#[cfg(test)]
+fn permute_gather<T: Copy, I: PermIndex>(v: &[T], perm: &[I]) -> Vec<T> {
+    perm.iter().map(|&i| v[i.index()]).collect()
+}
+
+/// Point indices of a permutation: u32 from `tree` (compact), usize from the sweep's tree.
+trait PermIndex: Copy {
+    fn index(self) -> usize;
+}
+impl PermIndex for u32 {
+    fn index(self) -> usize {
+        self as usize
+    }
+}
+impl PermIndex for usize {
+    fn index(self) -> usize {
+        self
     }
 }
 
@@ -568,8 +613,8 @@ fn add_counts(dst: &mut PairCounts, src: &PairCounts) {
 /// A catalogue validated, converted to kernel layout and indexed by its KD-tree, ready to be
 /// counted any number of times (DD and DR share the data tree; DR and RR the random tree).
 /// Built from a `PointSet` taken by value, whose columns it reuses: the peak memory of a count
-/// is then the positions and weights once, plus the tree, one column of scratch during the
-/// reordering, and the histograms.
+/// is then the positions and weights once, plus the tree, the permutation and one bit per
+/// point during the in-place reordering, and the histograms.
 pub struct Indexed {
     pts: Pts,
     tree: Tree,

@@ -680,3 +680,54 @@ fn series_branch_of_s_of_q_matches_libm() {
         }
     }
 }
+
+// In-place cycle-following reorder against the simple gather (our own reference), on the
+// identity, one cycle through every point, a reversal (all 2-cycles), random permutations of
+// sizes around the 64-bit word edges, and the tree's own permutation.
+#[test]
+fn permute_in_place_matches_gather() {
+    use rand::seq::SliceRandom;
+    let mut rng = ChaCha8Rng::seed_from_u64(17);
+    let mut perms: Vec<Vec<usize>> = Vec::new();
+    for n in [1usize, 2, 63, 64, 65, 1000] {
+        perms.push((0..n).collect());
+        perms.push((0..n).map(|i| (i + 1) % n).collect());
+        perms.push((0..n).rev().collect());
+        for _ in 0..3 {
+            let mut p: Vec<usize> = (0..n).collect();
+            p.shuffle(&mut rng);
+            perms.push(p);
+        }
+    }
+    let (pts, _, _) = shell(500, 3, 30.0);
+    let c = [pts.x.clone(), pts.y.clone(), pts.z.clone(), Vec::new()];
+    let tree_perm = tree::build_in(&c, None).1;
+    let mut done = vec![0u64; tree_perm.len().div_ceil(64)];
+    let mut x = pts.x.clone();
+    permute_in_place(&mut x, &tree_perm, &mut done);
+    assert_eq!(x, permute_gather(&pts.x, &tree_perm));
+    assert_ne!(x, pts.x);
+    perms.push(tree_perm.iter().map(|&i| i as usize).collect());
+    for perm in &perms {
+        let n = perm.len();
+        let mut done = vec![0u64; n.div_ceil(64)];
+        let f: Vec<f64> = (0..n).map(|_| rng.gen_range(-1.0..1.0)).collect();
+        let u: Vec<u32> = (0..n).map(|_| rng.gen()).collect();
+        let (mut f2, mut u2) = (f.clone(), u.clone());
+        permute_in_place(&mut f2, perm, &mut done);
+        assert!(done.iter().all(|&d| d == 0), "bitmap left set");
+        permute_in_place(&mut u2, perm, &mut done);
+        assert_eq!(
+            f2.iter().map(|x| x.to_bits()).collect::<Vec<_>>(),
+            permute_gather(&f, perm)
+                .iter()
+                .map(|x| x.to_bits())
+                .collect::<Vec<_>>()
+        );
+        assert_eq!(u2, permute_gather(&u, perm));
+    }
+    // empty columns stay empty
+    let mut e: Vec<f64> = Vec::new();
+    permute_in_place(&mut e, &[1u32, 0], &mut [0u64]);
+    assert!(e.is_empty());
+}

@@ -48,9 +48,13 @@ pub(crate) struct Tree {
 ///
 /// The parallel levels run on `pool` (else the current rayon pool); the arrays are allocated by
 /// the calling thread, so pool workers allocate nothing.
-pub(crate) fn build_in(c: &[Vec<f64>; 4], pool: Option<&rayon::ThreadPool>) -> (Tree, Vec<usize>) {
+///
+/// Point indices are u32 (half the memory of usize at the peak of `Indexed::new`): callers
+/// refuse catalogues of more than `MAX_POINTS` points.
+pub(crate) fn build_in(c: &[Vec<f64>; 4], pool: Option<&rayon::ThreadPool>) -> (Tree, Vec<u32>) {
     let n = c[0].len();
-    let mut perm: Vec<usize> = (0..n).collect();
+    assert!(n <= MAX_POINTS, "tree: more than {MAX_POINTS} points");
+    let mut perm: Vec<u32> = (0..n as u32).collect();
     // The top levels split their two halves over the current rayon pool. Every subtree's node
     // count follows from its point count alone (`count_nodes`), so each half writes its own
     // slice of one preallocated array in the sequential depth-first pre-order: the tree never
@@ -63,6 +67,9 @@ pub(crate) fn build_in(c: &[Vec<f64>; 4], pool: Option<&rayon::ThreadPool>) -> (
     }
     (Tree { nodes }, perm)
 }
+
+/// Most points a tree indexes (u32 point indices).
+pub(crate) const MAX_POINTS: usize = u32::MAX as usize;
 
 /// Subtrees below this size are built on one thread.
 const PAR_MIN_POINTS: usize = 20_000;
@@ -95,7 +102,7 @@ fn count_nodes(len: usize) -> usize {
 /// the global index of out[0].
 fn build_par(
     c: &[Vec<f64>; 4],
-    perm: &mut [usize],
+    perm: &mut [u32],
     start: usize,
     out: &mut [Node],
     base: u32,
@@ -129,7 +136,7 @@ fn build_par(
 /// Sequential subtree written to out[*cur..] in pre-order; returns its root's global index.
 fn build_seq(
     c: &[Vec<f64>; 4],
-    perm: &mut [usize],
+    perm: &mut [u32],
     start: usize,
     out: &mut [Node],
     cur: &mut usize,
@@ -151,7 +158,7 @@ fn build_seq(
 
 /// Bounds of the points `perm` (global positions start..start + perm.len()) and, when the
 /// node is to be split, the split: (node, Some((axis, local mid))).
-fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option<usize>) {
+fn node_of(c: &[Vec<f64>; 4], perm: &mut [u32], start: usize) -> (Node, Option<usize>) {
     let mut lo = [f64::INFINITY; 4];
     let mut hi = [f64::NEG_INFINITY; 4];
     // an empty t column (flat metrics) means t = 0
@@ -160,6 +167,7 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option
         (lo[3], hi[3]) = (0.0, 0.0);
     }
     for &p in perm.iter() {
+        let p = p as usize;
         for d in 0..dims {
             lo[d] = lo[d].min(c[d][p]);
             hi[d] = hi[d].max(c[d][p]);
@@ -181,7 +189,9 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [usize], start: usize) -> (Node, Option
         .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
         .unwrap_or(0);
     let mid = split_point(len);
-    perm.select_nth_unstable_by(mid, |&x, &y| c[dim][x].total_cmp(&c[dim][y]));
+    perm.select_nth_unstable_by(mid, |&x, &y| {
+        c[dim][x as usize].total_cmp(&c[dim][y as usize])
+    });
     (node, Some(mid))
 }
 
@@ -265,7 +275,7 @@ mod tests {
             (0..n).map(|_| 100.0 * next()).collect(),
             Vec::new(),
         ];
-        let mut perm: Vec<usize> = (0..n).collect();
+        let mut perm: Vec<u32> = (0..n as u32).collect();
         let mut seq = vec![Node::BLANK; count_nodes(n)];
         let mut cur = 0;
         build_seq(&c, &mut perm, 0, &mut seq, &mut cur, 0);
