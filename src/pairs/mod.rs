@@ -11,6 +11,10 @@
 //! integers (see `kernel`), so totals do not depend on grouping or order: any thread count, any
 //! sharding (`shard = (k, N)` takes tasks k, k+N, ... of a fixed list of top-level node pairs)
 //! and the one-pass fiducial sweep give bitwise the same result.
+//!
+//! Split-random RR (Keihanen et al. 2019, A&A 631, A73): `count_auto_split` counts the auto
+//! pairs of the m subsets `every_mth(p, k, m)` in one parallel job (`count_auto_subsets`), each
+//! result bitwise that of counting the subset alone.
 mod counts;
 mod kernel;
 mod regions;
