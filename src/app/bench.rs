@@ -98,6 +98,10 @@ pub struct BenchReport {
     /// Split RR (M = 10 subsets) counting time / full RR counting time, N threads, file read once
     /// outside the timing.
     pub split_rr_time_ratio: Option<f64>,
+    /// The same ratio in CPU seconds of the process (N threads; robust to other load), and in
+    /// wall time with 1 thread (no load-balance effects).
+    pub split_rr_cpu_ratio: Option<f64>,
+    pub split_rr_time_ratio_1t: Option<f64>,
     /// CPU time of a five-fiducial sweep of the survey RR over one single-fiducial RR count
     /// (1 thread, both including reading the file).
     pub sweep5_time_ratio: Option<f64>,
@@ -559,33 +563,45 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         .push("cKDTree reads the converted Cartesian randoms file".into());
     // Split RR against full RR, counting only (the file is read once, outside the timing:
     // reading is the same for both and would hide the ratio of the pair work), best of two.
-    let cfg_n = config(metric, threads)?;
-    let full_count = || -> Result<f64> {
-        let st = Instant::now();
-        let r = pairs::Indexed::new(rp.clone(), "randoms", &cfg_n)?;
-        total_pairs(&pairs::count_auto_indexed(&r, &cfg_n)?);
-        Ok(st.elapsed().as_secs_f64())
+    let split_count = |cfg: &CountConfig| -> Result<(f64, Option<f64>)> {
+        let (st, c0) = (Instant::now(), cpu_seconds());
+        let c = pairs::count_auto_split(&rp, RR_SPLITS, cfg)?;
+        c.iter().map(total_pairs).sum::<u64>();
+        Ok((
+            st.elapsed().as_secs_f64(),
+            c0.and_then(|c0| Some(cpu_seconds()? - c0)),
+        ))
     };
-    let split_count = || -> Result<f64> {
-        let st = Instant::now();
-        for k in 0..RR_SPLITS {
-            let pick = |v: &Vec<f64>| v.iter().skip(k).step_by(RR_SPLITS).copied().collect();
-            let s = PointSet {
-                x: pick(&rp.x),
-                y: pick(&rp.y),
-                z: pick(&rp.z),
-                w: pick(&rp.w),
-                redshift: pick(&rp.redshift),
-                region: Vec::new(),
-            };
-            let s = pairs::Indexed::new(s, "random subset", &cfg_n)?;
-            total_pairs(&pairs::count_auto_indexed(&s, &cfg_n)?);
-        }
-        Ok(st.elapsed().as_secs_f64())
+    let full_count = |cfg: &CountConfig| -> Result<(f64, Option<f64>)> {
+        let (st, c0) = (Instant::now(), cpu_seconds());
+        let r = pairs::Indexed::new(rp.clone(), "randoms", cfg)?;
+        total_pairs(&pairs::count_auto_indexed(&r, cfg)?);
+        Ok((
+            st.elapsed().as_secs_f64(),
+            c0.and_then(|c0| Some(cpu_seconds()? - c0)),
+        ))
     };
-    let tf = full_count()?.min(full_count()?);
-    let ts = split_count()?.min(split_count()?);
-    let split_ratio = Some(ts / tf);
+    // best of two for wall and CPU time each
+    let best = |f: &dyn Fn() -> Result<(f64, Option<f64>)>| -> Result<(f64, Option<f64>)> {
+        let (a, b) = (f()?, f()?);
+        let cpu = match (a.1, b.1) {
+            (Some(x), Some(y)) => Some(x.min(y)),
+            _ => None,
+        };
+        Ok((a.0.min(b.0), cpu))
+    };
+    let ratio = |cfg: &CountConfig| -> Result<(f64, Option<f64>)> {
+        let (tf, cf) = best(&|| full_count(cfg))?;
+        let (ts, cs) = best(&|| split_count(cfg))?;
+        let cpu = match (cf, cs) {
+            (Some(f), Some(s)) if f > 0.0 => Some(s / f),
+            _ => None,
+        };
+        Ok((ts / tf, cpu))
+    };
+    let (split_wall, split_cpu) = ratio(&config(metric, threads)?)?;
+    let (split_wall_1t, _) = ratio(&config(metric, 1)?)?;
+    let split_ratio = Some(split_wall);
     rows.push(rrow);
 
     // Fiducial sweep: RR under five Omega_k fiducials (fixed physical densities and h) in one
@@ -648,6 +664,8 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         survey_scale: scale,
         rows,
         split_rr_time_ratio: split_ratio,
+        split_rr_cpu_ratio: split_cpu,
+        split_rr_time_ratio_1t: Some(split_wall_1t),
         sweep5_time_ratio: sweep_ratio,
         notes,
     })
@@ -702,6 +720,17 @@ pub fn render_table(r: &BenchReport) -> String {
         s.push_str(&format!(
             "split RR (M = {RR_SPLITS}) / full RR counting time (file read once, outside), {} threads: {x:.3}\n",
             r.threads
+        ));
+    }
+    if let Some(x) = r.split_rr_cpu_ratio {
+        s.push_str(&format!(
+            "split RR / full RR counting, CPU time, {} threads: {x:.3}\n",
+            r.threads
+        ));
+    }
+    if let Some(x) = r.split_rr_time_ratio_1t {
+        s.push_str(&format!(
+            "split RR / full RR counting time, 1 thread: {x:.3}\n"
         ));
     }
     if let Some(x) = r.sweep5_time_ratio {

@@ -191,25 +191,7 @@ fn point_set(cat: &Catalogue, pos: crate::geometry::Positions, region: Vec<u32>)
 
 /// Every `m`-th object starting at `start`: the deterministic split-random subsets.
 pub(crate) fn subset(p: &PointSet, start: usize, m: usize) -> PointSet {
-    let pick = |v: &Vec<f64>| {
-        v.iter()
-            .skip(start)
-            .step_by(m)
-            .copied()
-            .collect::<Vec<f64>>()
-    };
-    PointSet {
-        x: pick(&p.x),
-        y: pick(&p.y),
-        z: pick(&p.z),
-        w: pick(&p.w),
-        redshift: pick(&p.redshift),
-        region: if p.region.is_empty() {
-            vec![]
-        } else {
-            p.region.iter().skip(start).step_by(m).copied().collect()
-        },
-    }
+    pairs::every_mth(p, start, m)
 }
 
 /// Slab regions along x for Cartesian catalogues: equal widths over the joint x range.
@@ -278,6 +260,21 @@ pub struct Prepared {
 
 impl Prepared {
     /// Count one piece, restricted to part `shard` = (k, N) of its tasks.
+    /// Count all split-random RR pieces (`Piece::Rr(0..m)`, m = `rr_splits` > 1) in one
+    /// parallel job, restricted to part `shard` of each subset's tasks: result s equals
+    /// `count_piece(Piece::Rr(s), shard)` bitwise.
+    pub fn count_rr_splits(&self, shard: (usize, usize)) -> Result<Vec<PairCounts>> {
+        let cfg = CountConfig {
+            shard,
+            ..self.cfg.clone()
+        };
+        let pr = self
+            .randoms
+            .as_ref()
+            .ok_or_else(|| Error::input("this count has no randoms"))?;
+        pairs::count_auto_split(pr, self.header.meta.rr_splits, &cfg)
+    }
+
     pub fn count_piece(&self, piece: Piece, shard: (usize, usize)) -> Result<PairCounts> {
         let cfg = CountConfig {
             shard,
@@ -327,13 +324,23 @@ impl Prepared {
                 .as_ref()
                 .ok_or_else(|| Error::input("this count has no randoms"))
         };
+        // split-random RR: all subsets in one parallel job
+        let mut rr_split: Vec<Option<PairCounts>> =
+            if split && self.header.pieces.iter().any(|q| matches!(q, Piece::Rr(_))) {
+                self.count_rr_splits(shard)?.into_iter().map(Some).collect()
+            } else {
+                Vec::new()
+            };
         let mut counts = Vec::with_capacity(self.header.pieces.len());
         for &piece in &self.header.pieces {
             counts.push(match piece {
                 Piece::Dd => pairs::count_auto_indexed(&data, &cfg)?,
                 Piece::Dr => pairs::count_cross_indexed(&data, ir()?, &cfg)?,
                 Piece::Rr(_) if !split => pairs::count_auto_indexed(ir()?, &cfg)?,
-                Piece::Rr(_) => self.count_piece(piece, shard)?,
+                Piece::Rr(s) => rr_split
+                    .get_mut(s)
+                    .and_then(Option::take)
+                    .ok_or_else(|| Error::other("split RR: subset count missing"))?,
             });
         }
         Ok((self.header, counts))

@@ -11,6 +11,10 @@
 //! integers (see `kernel`), so totals do not depend on grouping or order: any thread count, any
 //! sharding (`shard = (k, N)` takes tasks k, k+N, ... of a fixed list of top-level node pairs)
 //! and the one-pass fiducial sweep give bitwise the same result.
+//!
+//! Split-random RR (Keihanen et al. 2019, A&A 631, A73): `count_auto_split` counts the auto
+//! pairs of the m subsets `every_mth(p, k, m)` in one parallel job (`count_auto_subsets`), each
+//! result bitwise that of counting the subset alone.
 mod counts;
 mod kernel;
 mod regions;
@@ -696,13 +700,22 @@ pub(crate) fn count_impl(
     count_indexed_impl(&ia, ib.as_ref(), cfg, kind)
 }
 
-fn count_indexed_impl(
-    ia: &Indexed,
-    ib: Option<&Indexed>,
+/// One count made ready to run: the traversal context, the quantisation and this shard's
+/// top-level tasks.
+struct Job<'a> {
+    w: Walker<'a>,
+    quant: Quant,
+    tasks: Vec<Task>,
+}
+
+fn job<'a>(
+    ia: &'a Indexed,
+    ib: Option<&'a Indexed>,
     cfg: &CountConfig,
+    geo: Geo,
+    bn: &'a Binner,
     kind: KernelKind,
-) -> crate::Result<PairCounts> {
-    let (geo, bn) = check_config(cfg)?;
+) -> crate::Result<Job<'a>> {
     ia.check(cfg)?;
     if let Some(ib) = ib {
         ib.check(cfg)?;
@@ -728,7 +741,7 @@ fn count_indexed_impl(
         tb,
         pb,
         geo,
-        bn: &bn,
+        bn,
         leaf: kernel::pick_for(
             kind,
             geo.kind,
@@ -744,31 +757,143 @@ fn count_indexed_impl(
         b: 0,
         same: ib.is_none(),
     };
-    let tasks = w.tasks(root);
     let (k, n) = cfg.shard;
-    let mine: Vec<Task> = tasks.iter().skip(k).step_by(n).copied().collect();
-    let nb = bn.nb;
-    let nreg = cfg.n_regions;
+    let tasks = w.tasks(root).into_iter().skip(k).step_by(n).collect();
     let quant = Quant::for_data(pa, ib.map(|b| &b.pts), cfg.binning.s_max())?;
-    let zeros = || PairCounts::zeros(cfg.binning.clone(), nreg);
+    Ok(Job { w, quant, tasks })
+}
+
+fn count_indexed_impl(
+    ia: &Indexed,
+    ib: Option<&Indexed>,
+    cfg: &CountConfig,
+    kind: KernelKind,
+) -> crate::Result<PairCounts> {
+    let (geo, bn) = check_config(cfg)?;
+    let j = job(ia, ib, cfg, geo, &bn, kind)?;
     let pool = build_pool(cfg.threads)?;
-    let out = pool.install(|| {
-        mine.par_iter()
+    let mut out = run_jobs(&[j], cfg, &pool);
+    Ok(out
+        .pop()
+        .unwrap_or_else(|| PairCounts::zeros(cfg.binning.clone(), cfg.n_regions)))
+}
+
+/// Run the tasks of several counts as one parallel job on `pool`: one result per job. The
+/// tasks of all jobs form one list (job by job), so threads stay busy across the jobs, and each
+/// worker's accumulator is flushed into its job's totals when the next task belongs to another
+/// job and at the end. Totals are integer sums, so they do not depend on how the list is split.
+fn run_jobs(jobs: &[Job], cfg: &CountConfig, pool: &rayon::ThreadPool) -> Vec<PairCounts> {
+    let nb = cfg.binning.n_bins();
+    let nreg = cfg.n_regions;
+    let zeros = || vec![PairCounts::zeros(cfg.binning.clone(), nreg); jobs.len()];
+    let Some(first) = jobs.first() else {
+        return Vec::new();
+    };
+    let q0 = first.quant;
+    let all: Vec<(usize, Task)> = jobs
+        .iter()
+        .enumerate()
+        .flat_map(|(k, j)| j.tasks.iter().map(move |&t| (k, t)))
+        .collect();
+    // per worker: accumulator, the job it holds sums of, the per-job totals, a walk stack
+    pool.install(|| {
+        all.par_iter()
             .fold(
-                || (Acc::new(nb, nreg, quant), zeros(), Vec::new()),
-                |(mut acc, mut pc, mut stack), &t| {
-                    w.walk(t, &mut acc, &mut stack);
-                    acc.flush(&mut pc);
-                    (acc, pc, stack)
+                || (Acc::new(nb, nreg, q0), 0usize, zeros(), Vec::new()),
+                |(mut acc, mut cur, mut pcs, mut stack), &(k, t)| {
+                    if k != cur {
+                        acc.flush(&mut pcs[cur]);
+                        acc.q = jobs[k].quant;
+                        cur = k;
+                    }
+                    jobs[k].w.walk(t, &mut acc, &mut stack);
+                    (acc, cur, pcs, stack)
                 },
             )
-            .map(|(_, pc, _)| pc)
+            .map(|(mut acc, cur, mut pcs, _)| {
+                acc.flush(&mut pcs[cur]);
+                pcs
+            })
             .reduce(zeros, |mut x, y| {
-                add_counts(&mut x, &y);
+                for (a, b) in x.iter_mut().zip(&y) {
+                    add_counts(a, b);
+                }
                 x
             })
-    });
-    Ok(out)
+    })
+}
+
+/// Split-random subset `start` of `m`: every m-th object of `p` from index `start` (object i
+/// belongs to subset i mod m), so the split depends on the catalogue order alone.
+pub fn every_mth(p: &PointSet, start: usize, m: usize) -> PointSet {
+    fn pick<T: Copy>(v: &[T], start: usize, m: usize) -> Vec<T> {
+        v.iter().skip(start).step_by(m.max(1)).copied().collect()
+    }
+    PointSet {
+        x: pick(&p.x, start, m),
+        y: pick(&p.y, start, m),
+        z: pick(&p.z, start, m),
+        w: pick(&p.w, start, m),
+        redshift: pick(&p.redshift, start, m),
+        region: pick(&p.region, start, m),
+    }
+}
+
+/// Index the `m` subsets `every_mth(p, k, m)`, k = 0..m, built in parallel on `cfg.threads`.
+pub fn index_subsets(
+    p: &PointSet,
+    m: usize,
+    name: &str,
+    cfg: &CountConfig,
+) -> crate::Result<Vec<Indexed>> {
+    if m == 0 {
+        return Err(crate::Error::input(format!(
+            "{name}: number of subsets must be >= 1"
+        )));
+    }
+    // one subset per worker task; each tree built on one thread (trees do not depend on it)
+    let one = CountConfig {
+        threads: 1,
+        ..cfg.clone()
+    };
+    let pool = build_pool(cfg.threads)?;
+    pool.install(|| {
+        (0..m)
+            .into_par_iter()
+            .map(|k| Indexed::new(every_mth(p, k, m), &format!("{name} subset {k}"), &one))
+            .collect()
+    })
+}
+
+/// Auto counts of several catalogues (typically the split-random subsets of RR) in one parallel
+/// job: one pool, the top-level tasks of all catalogues in one list. Result k is bitwise
+/// `count_auto_indexed(&subsets[k], cfg)`, for any thread count and shard.
+pub fn count_auto_subsets(
+    subsets: &[Indexed],
+    cfg: &CountConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    let (geo, bn) = check_config(cfg)?;
+    let pool = build_pool(cfg.threads)?;
+    // the subsets' task lists are cut in parallel too (a serial phase per subset would leave
+    // the other threads idle)
+    let jobs = pool.install(|| {
+        subsets
+            .par_iter()
+            .map(|s| job(s, None, cfg, geo, &bn, KernelKind::Fast))
+            .collect::<crate::Result<Vec<_>>>()
+    })?;
+    Ok(run_jobs(&jobs, cfg, &pool))
+}
+
+/// Split-random RR: the auto counts of the `m` subsets `every_mth(p, k, m)`, each subset's own
+/// pairs only (about 1/m of the pairs of `count_auto(p)`).
+pub fn count_auto_split(
+    p: &PointSet,
+    m: usize,
+    cfg: &CountConfig,
+) -> crate::Result<Vec<PairCounts>> {
+    let subsets = index_subsets(p, m, "randoms", cfg)?;
+    count_auto_subsets(&subsets, cfg)
 }
 
 fn brute_impl(a: &PointSet, b: Option<&PointSet>, cfg: &CountConfig) -> crate::Result<PairCounts> {

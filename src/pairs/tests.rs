@@ -731,3 +731,69 @@ fn permute_in_place_matches_gather() {
     permute_in_place(&mut e, &[1u32, 0], &mut [0u64]);
     assert!(e.is_empty());
 }
+
+/// Split-random RR in one job equals counting each subset on its own, bit for bit, for any
+/// thread count and shard; subsets hold exactly the objects i with i mod m = k.
+#[test]
+fn split_subsets_count_like_each_subset_alone() {
+    let split = 5;
+    for (m, n_mu) in [
+        (Metric::Euclidean, 1),
+        (Metric::Periodic { box_size: 1000.0 }, 3),
+        (Metric::Closed { radius: r_curv() }, 1),
+    ] {
+        let mut c = cfg(linear_edges(), n_mu, m, 3);
+        let p = data_for(&m, 8, 2600, 3);
+        let subs: Vec<PointSet> = (0..split).map(|k| every_mth(&p, k, split)).collect();
+        assert_eq!(subs.iter().map(PointSet::len).sum::<usize>(), p.len());
+        for (k, s) in subs.iter().enumerate() {
+            for (j, &x) in s.x.iter().enumerate() {
+                assert_eq!(x, p.x[j * split + k]);
+                assert_eq!(s.region[j], p.region[j * split + k]);
+            }
+        }
+        c.threads = 1;
+        let alone: Vec<PairCounts> = subs.iter().map(|s| count_auto(s, &c).unwrap()).collect();
+        let what = format!("{m:?} n_mu={n_mu}");
+        // independent reference for one subset
+        assert_close(
+            &alone[2],
+            &brute_force_auto(&subs[2], &c),
+            subs[2].len(),
+            &what,
+        );
+        // same-subset pairs are about 1/m of all pairs (every pair equally likely to be one)
+        let tot = |v: &[PairCounts]| v.iter().flat_map(|c| &c.npairs).sum::<u64>() as f64;
+        let full = count_auto(&p, &c).unwrap();
+        let frac = tot(&alone) / tot(std::slice::from_ref(&full)) * split as f64;
+        assert!(
+            (0.85..1.15).contains(&frac),
+            "{what}: fraction x m = {frac}"
+        );
+        for t in [1, 2, 7] {
+            c.threads = t;
+            assert_eq!(
+                count_auto_split(&p, split, &c).unwrap(),
+                alone,
+                "{what} {t} threads"
+            );
+        }
+        // a shard of the joint job is the same shard of each subset's count
+        c.threads = 2;
+        let idx = index_subsets(&p, split, "randoms", &c).unwrap();
+        c.shard = (1, 3);
+        let part = count_auto_subsets(&idx, &c).unwrap();
+        for (k, s) in subs.iter().enumerate() {
+            assert_eq!(
+                part[k],
+                count_auto(s, &c).unwrap(),
+                "{what} shard, subset {k}"
+            );
+        }
+    }
+    let c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
+    let p = shell(30, 9, 9.0).0;
+    let msg = |r: crate::Result<Vec<PairCounts>>| r.unwrap_err().to_string();
+    assert!(msg(count_auto_split(&p, 0, &c)).contains("subsets"));
+    assert!(msg(count_auto_split(&p, 40, &c)).contains("subset 30"));
+}

@@ -2,8 +2,15 @@
 //! plus t), and conservative node-pair bounds on the quadratic form q.
 use super::kernel::{CLO, OPE, PER};
 
-/// Maximum points per leaf bucket.
+/// Maximum points per leaf bucket. Inside a leaf the points are further ordered into compact
+/// blocks of 8 (`order_blocks`), the SIMD step of the leaf kernel, whose steps with no pair in
+/// range are cheap: a leaf then does little more pair work than eight-point leaves would,
+/// without their node visits and kernel calls, at any density. (Measured, 2e5 and 2e4 points
+/// in a survey cap, s_max = 200 Mpc/h: block order saves 5-10%; with it, leaves of 48-128
+/// points were a further 5% faster than 32, and 16 were 10% slower.)
 pub(crate) const LEAF_SIZE: usize = 32;
+/// Points per block inside a leaf (the kernel's lane count).
+const BLOCK: usize = 8;
 
 #[derive(Debug, Clone, PartialEq)]
 pub(crate) struct Node {
@@ -183,6 +190,7 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [u32], start: usize) -> (Node, Option<u
         right: 0,
     };
     if len <= LEAF_SIZE {
+        order_blocks(c, perm);
         return (node, None);
     }
     let dim = (0..3)
@@ -193,6 +201,39 @@ fn node_of(c: &[Vec<f64>; 4], perm: &mut [u32], start: usize) -> (Node, Option<u
         c[dim][x as usize].total_cmp(&c[dim][y as usize])
     });
     (node, Some(mid))
+}
+
+/// Order the points of a leaf into blocks of `BLOCK` (from the leaf start) that are compact in
+/// space, by median splits of the widest axis at `split_point`. Only the order inside the leaf
+/// changes (its box and the tree do not), and counts never depend on the order of pairs.
+fn order_blocks(c: &[Vec<f64>; 4], perm: &mut [u32]) {
+    let len = perm.len();
+    if len <= BLOCK {
+        return;
+    }
+    let mut lo = [f64::INFINITY; 3];
+    let mut hi = [f64::NEG_INFINITY; 3];
+    for &p in perm.iter() {
+        for d in 0..3 {
+            lo[d] = lo[d].min(c[d][p as usize]);
+            hi[d] = hi[d].max(c[d][p as usize]);
+        }
+    }
+    let dim = (0..3)
+        .max_by(|&x, &y| (hi[x] - lo[x]).total_cmp(&(hi[y] - lo[y])))
+        .unwrap_or(0);
+    // whole blocks on the left: up to two blocks, split at one block
+    let mid = if len <= 2 * BLOCK {
+        BLOCK
+    } else {
+        split_point(len)
+    };
+    perm.select_nth_unstable_by(mid, |&x, &y| {
+        c[dim][x as usize].total_cmp(&c[dim][y as usize])
+    });
+    let (l, r) = perm.split_at_mut(mid);
+    order_blocks(c, l);
+    order_blocks(c, r);
 }
 
 /// Bounds [qmin, qmax] on q over all pairs with one point in box `a` and one in box `b`.
