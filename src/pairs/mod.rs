@@ -15,6 +15,8 @@ mod counts;
 mod kernel;
 mod regions;
 #[cfg(target_arch = "x86_64")]
+mod simd256;
+#[cfg(target_arch = "x86_64")]
 mod simd512;
 mod sweep;
 mod tree;

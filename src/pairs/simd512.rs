@@ -23,19 +23,19 @@ use std::arch::x86_64::*;
 
 /// Pairs the buffer collects before they are accumulated (one more vector of slack takes the
 /// full-width stores of compressed lanes).
-const BUF: usize = 2048;
+pub(super) const BUF: usize = 2048;
 
 /// The pair buffer of stage 1 (kept in the task's accumulator so it is allocated once).
 #[derive(Default)]
 pub(crate) struct PairBuf {
-    q: Vec<f64>,
-    w: Vec<f64>,
-    z: Vec<f64>,
-    ij: Vec<u64>,
+    pub(super) q: Vec<f64>,
+    pub(super) w: Vec<f64>,
+    pub(super) z: Vec<f64>,
+    pub(super) ij: Vec<u64>,
 }
 
 impl PairBuf {
-    fn ensure(&mut self) {
+    pub(super) fn ensure(&mut self) {
         if self.q.len() < BUF + LANES {
             for v in [&mut self.q, &mut self.w, &mut self.z] {
                 v.resize(BUF + LANES, 0.0);
