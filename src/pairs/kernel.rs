@@ -15,8 +15,9 @@
 //! auto-vectorises, then a table bin lookup with one exact compare), compiled for AVX2 or as
 //! portable code, and the AVX-512 kernel in `simd512` (counts without mu bins in flat, periodic
 //! and, for s_max small against R, curved metrics: vector arithmetic, then branch-free scalar
-//! adds into per-lane integer histograms, so no two lanes ever touch the same slot). The
-//! instruction set is chosen at run time.
+//! adds into per-lane integer histograms, so no two lanes ever touch the same slot) with its
+//! AVX2 counterpart in `simd256` for the same cases. The instruction set is chosen at run time
+//! (`Simd::detect`).
 use super::counts::{PairCounts, FRAC_BITS};
 
 pub(crate) const FLAT: u8 = 0;
@@ -428,7 +429,7 @@ pub(crate) const PAIR_BUF_BYTES: usize = 4 * 8 * (2048 + LANES);
 pub(crate) const LANES: usize = 8;
 
 /// Per-task integer accumulators. Scalar kernels add each pair's quantised terms straight into
-/// i128 bin totals; the AVX-512 kernel adds into per-lane i64 histograms that are folded into
+/// i128 bin totals; the SIMD kernels add into per-lane i64 histograms that are folded into
 /// the totals before they could overflow (`Quant::lane_limit`). Totals are in units of
 /// 2^-f per column and are shifted to `FRAC_BITS` when flushed into `PairCounts`.
 pub(crate) struct Acc {
@@ -452,7 +453,7 @@ pub(crate) struct Acc {
     /// Lane columns w and z written since the last lane flush.
     pub lanes_w: bool,
     pub lanes_z: bool,
-    /// Pair buffer of the AVX-512 kernel (empty until it first runs).
+    /// Pair buffer of the AVX-512 and AVX2 kernels (empty until one first runs).
     #[cfg(target_arch = "x86_64")]
     pub buf: super::simd512::PairBuf,
     /// Set by the unit-weight kernels, which skip the w1w2 column: every pair then has
@@ -673,6 +674,10 @@ pub(crate) enum KernelKind {
     /// Test instrument: bin 0 gets one count per leaf pair and w1w2 = number of pair tests.
     #[cfg(test)]
     Tally,
+    /// Test instrument: the fast kernels of a given instruction set (the caller checks that
+    /// the CPU supports it).
+    #[cfg(test)]
+    FastAt(Simd),
 }
 
 #[cfg(test)]
@@ -856,7 +861,29 @@ unsafe fn leaf_avx2<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
+    use super::simd256::leaf;
+    let lin = bn.lin.is_some();
+    // curved metrics: only where every counted pair takes the series branch of `s_of_q`
+    let series = bn.qhi().max(0.0).sqrt() / (2.0 * g.radius) <= SERIES_X_MAX;
+    if !MU && bn.table_ok && K == FLAT {
+        if lin {
+            leaf::<FLAT, true, UW, ZZ>(a, b, lp, g, bn, acc)
+        } else {
+            leaf::<FLAT, false, UW, ZZ>(a, b, lp, g, bn, acc)
+        }
+    } else if !MU && bn.table_ok && K == PER {
+        if lin {
+            leaf::<PER, true, UW, ZZ>(a, b, lp, g, bn, acc)
+        } else {
+            leaf::<PER, false, UW, ZZ>(a, b, lp, g, bn, acc)
+        }
+    } else if !MU && bn.table_ok && K == CLO && series {
+        leaf::<CLO, false, UW, ZZ>(a, b, lp, g, bn, acc)
+    } else if !MU && bn.table_ok && K == OPE && series {
+        leaf::<OPE, false, UW, ZZ>(a, b, lp, g, bn, acc)
+    } else {
+        leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
+    }
 }
 
 fn leaf_portable<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
@@ -881,20 +908,68 @@ pub(crate) enum Simd {
 }
 
 impl Simd {
+    /// The level used for counts: the best one the CPU supports, or the one named by the
+    /// environment variable `RINGSCALE_SIMD` (`avx512`, `avx2`, `portable`; for benchmarks and
+    /// for checking kernels on one machine). A level the CPU lacks, or an unknown name, falls
+    /// back to detection with a one-line warning. Read once per process.
     pub fn detect() -> Self {
+        static LEVEL: std::sync::OnceLock<Simd> = std::sync::OnceLock::new();
+        *LEVEL.get_or_init(|| {
+            let best = Simd::best();
+            let Ok(name) = std::env::var("RINGSCALE_SIMD") else {
+                return best;
+            };
+            match Simd::named(name.trim()) {
+                Some(s) if s.supported() => s,
+                _ => {
+                    eprintln!(
+                        "warning: RINGSCALE_SIMD={name}: not a level this CPU supports \
+                         (avx512, avx2, portable); using {best:?}"
+                    );
+                    best
+                }
+            }
+        })
+    }
+
+    /// The best level the CPU supports.
+    fn best() -> Self {
         #[cfg(target_arch = "x86_64")]
         {
-            if std::arch::is_x86_feature_detected!("avx512f")
-                && std::arch::is_x86_feature_detected!("avx512dq")
-                && std::arch::is_x86_feature_detected!("popcnt")
-            {
+            if Simd::Avx512.supported() {
                 return Simd::Avx512;
             }
-            if std::arch::is_x86_feature_detected!("avx2") {
+            if Simd::Avx2.supported() {
                 return Simd::Avx2;
             }
         }
         Simd::Portable
+    }
+
+    fn named(name: &str) -> Option<Self> {
+        match name.to_ascii_lowercase().as_str() {
+            "portable" => Some(Simd::Portable),
+            #[cfg(target_arch = "x86_64")]
+            "avx2" => Some(Simd::Avx2),
+            #[cfg(target_arch = "x86_64")]
+            "avx512" => Some(Simd::Avx512),
+            _ => None,
+        }
+    }
+
+    /// Whether the CPU can run this level's kernels.
+    pub fn supported(self) -> bool {
+        match self {
+            Simd::Portable => true,
+            #[cfg(target_arch = "x86_64")]
+            Simd::Avx2 => std::arch::is_x86_feature_detected!("avx2"),
+            #[cfg(target_arch = "x86_64")]
+            Simd::Avx512 => {
+                std::arch::is_x86_feature_detected!("avx512f")
+                    && std::arch::is_x86_feature_detected!("avx512dq")
+                    && std::arch::is_x86_feature_detected!("popcnt")
+            }
+        }
     }
 }
 
@@ -934,6 +1009,10 @@ fn pick_k<const K: u8>(kind: KernelKind, mu: bool, simd: Simd, d: DataFlags) -> 
         (KernelKind::Fast, true) => pick_w::<K, true>(simd, d),
         #[cfg(test)]
         (KernelKind::Tally, _) => leaf_tally,
+        #[cfg(test)]
+        (KernelKind::FastAt(s), false) => pick_w::<K, false>(s, d),
+        #[cfg(test)]
+        (KernelKind::FastAt(s), true) => pick_w::<K, true>(s, d),
     }
 }
 
@@ -947,6 +1026,14 @@ pub(crate) struct DataFlags {
 }
 
 impl DataFlags {
+    /// One catalogue stored without its (all-zero) redshifts counted against one with
+    /// redshifts: only the reference kernel reads them through `Pts::z_at`; the fast kernels
+    /// index both columns directly. Rare (a redshift column of zeros in one catalogue only),
+    /// so it has no fast variant.
+    pub fn mixed_z(a: &Pts, b: &Pts) -> bool {
+        a.z.is_empty() != b.z.is_empty() && !Self::of(a, b).zero_z
+    }
+
     pub fn of(a: &Pts, b: &Pts) -> Self {
         DataFlags {
             unit_w: a.w.iter().chain(&b.w).all(|&w| w == 1.0),
@@ -975,7 +1062,7 @@ mod flag_tests {
     //! The unit-weight / zero-redshift specialisations must give bitwise the reference kernel's
     //! result (the general tests use random weights and so never take these paths).
     use super::super::{count_impl, Binning, CountConfig, Metric, PointSet};
-    use super::KernelKind;
+    use super::{KernelKind, Simd};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 
@@ -1036,6 +1123,193 @@ mod flag_tests {
                     let f = count_impl(&a, Some(&b), &c, KernelKind::Fast).unwrap();
                     assert_eq!(r, f, "cross {what}");
                 }
+            }
+        }
+    }
+    /// Reference and AVX2 counts (auto and cross) of `a` and `b`, which must agree bitwise.
+    #[cfg(target_arch = "x86_64")]
+    fn check_avx2(a: &PointSet, b: &PointSet, c: &CountConfig, what: &str) -> u64 {
+        let avx2 = KernelKind::FastAt(Simd::Avx2);
+        let r = count_impl(a, None, c, KernelKind::Reference).unwrap();
+        let f = count_impl(a, None, c, avx2).unwrap();
+        assert_eq!(r, f, "auto {what}");
+        let r2 = count_impl(a, Some(b), c, KernelKind::Reference).unwrap();
+        let f2 = count_impl(a, Some(b), c, avx2).unwrap();
+        assert_eq!(r2, f2, "cross {what}");
+        r.npairs.iter().sum::<u64>()
+    }
+
+    #[cfg(target_arch = "x86_64")]
+    fn metrics(box_size: f64) -> [Metric; 4] {
+        [
+            Metric::Euclidean,
+            Metric::Periodic { box_size },
+            Metric::Closed { radius: 1e4 },
+            Metric::Open { radius: 1e4 },
+        ]
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn avx2_kernel_is_bitwise_reference() {
+        // the AVX2 kernel forced (the detected level may be AVX-512): every metric, linear
+        // (bins rebuilt in registers) and uneven (table) edges, unit / general weights, zero /
+        // non-zero redshifts, with and without regions; mu bins take the generic AVX2 kernel
+        if !Simd::Avx2.supported() {
+            eprintln!("no AVX2 on this CPU: AVX2 kernel not checked");
+            return;
+        }
+        let lin: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
+        let uneven: Vec<f64> = (0..=16).map(|i| 2.0 + 0.4 * (i * i) as f64).collect();
+        for (metric, edges) in metrics(300.0)
+            .into_iter()
+            .flat_map(|m| [(m, lin.clone()), (m, uneven.clone())])
+        {
+            for (uw, zz) in [(true, true), (true, false), (false, true), (false, false)] {
+                for (n_mu, n_regions) in [(1, 0), (1, 3), (2, 0)] {
+                    let c = CountConfig {
+                        binning: Binning::new(edges.clone(), n_mu).unwrap(),
+                        metric,
+                        n_regions,
+                        threads: 2,
+                        shard: (0, 1),
+                    };
+                    // sizes not multiples of 4 or 8: tail lanes in both stages
+                    let a = points(1203, 1, uw, zz);
+                    let b = points(701, 2, uw, zz);
+                    let what = format!("{metric:?} uw={uw} zz={zz} n_mu={n_mu} reg={n_regions}");
+                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn avx2_kernel_bins_pairs_on_edges_like_reference() {
+        // integer lattice points and integer edges: many pairs have q exactly on a q-edge
+        // (s = 5 for (3, 4, 0)), where s computed from q may round across the edge
+        if !Simd::Avx2.supported() {
+            return;
+        }
+        let lattice = |n: usize, off: f64| {
+            let mut p = PointSet::default();
+            for i in 0..n * n * n {
+                p.x.push((i % n) as f64 + off);
+                p.y.push(((i / n) % n) as f64 + off);
+                p.z.push((i / (n * n)) as f64 + off);
+                p.w.push(1.0 + (i % 3) as f64 * 0.25);
+                p.redshift.push(0.5);
+                p.region.push((i % 3) as u32);
+            }
+            p
+        };
+        let a = lattice(11, 0.0);
+        let b = lattice(7, 2.0);
+        let lin: Vec<f64> = (0..=9).map(|i| i as f64).collect();
+        let uneven = vec![1.0, 2.0, 3.0, 5.0, 8.0, 9.0];
+        for metric in metrics(19.0) {
+            for edges in [lin.clone(), uneven.clone()] {
+                for n_regions in [0, 3] {
+                    let c = CountConfig {
+                        binning: Binning::new(edges.clone(), 1).unwrap(),
+                        metric,
+                        n_regions,
+                        threads: 2,
+                        shard: (0, 1),
+                    };
+                    let what = format!("lattice {metric:?} {edges:?} reg={n_regions}");
+                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn avx2_kernel_bins_pairs_within_ulps_of_edges_like_reference() {
+        // points on spheres of edge radius around a few centres, each coordinate moved by a
+        // few ulps: centre-shell pairs have q within ulps of a q-edge, where s (and the bin
+        // estimated from it) can fall on the wrong side of the edge and the exact compare
+        // must correct it; step 0.7 (inexact 1/ds) and 3 (exact)
+        if !Simd::Avx2.supported() {
+            return;
+        }
+        let mut rng = ChaCha8Rng::seed_from_u64(9);
+        for edges in [
+            (0..=12).map(|k| 1.5 + 0.7 * k as f64).collect::<Vec<f64>>(),
+            (0..=10).map(|k| 3.0 * k as f64).collect(),
+        ] {
+            let mut a = PointSet::default();
+            for _ in 0..4 {
+                let c: [f64; 3] = std::array::from_fn(|_| rng.gen_range(35.0..65.0));
+                let push = |p: &mut PointSet, x: [f64; 3]| {
+                    p.x.push(x[0]);
+                    p.y.push(x[1]);
+                    p.z.push(x[2]);
+                    p.w.push(1.0);
+                    p.redshift.push(0.3);
+                    p.region.push(p.x.len() as u32 % 3);
+                };
+                push(&mut a, c);
+                for &e in &edges {
+                    for _ in 0..40 {
+                        let u: [f64; 3] = std::array::from_fn(|_| rng.gen_range(-1.0..1.0));
+                        let n = (u[0] * u[0] + u[1] * u[1] + u[2] * u[2]).sqrt();
+                        let x: [f64; 3] = std::array::from_fn(|d| {
+                            let v = c[d] + e * u[d] / n;
+                            f64::from_bits((v.to_bits() as i64 + rng.gen_range(-3..=3)) as u64)
+                        });
+                        push(&mut a, x);
+                    }
+                }
+            }
+            let b = points(300, 3, false, false);
+            for metric in metrics(100.0) {
+                for n_regions in [0, 3] {
+                    let c = CountConfig {
+                        binning: Binning::new(edges.clone(), 1).unwrap(),
+                        metric,
+                        n_regions,
+                        threads: 2,
+                        shard: (0, 1),
+                    };
+                    let what = format!("near edges {metric:?} {} reg={n_regions}", edges[1]);
+                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
+                }
+            }
+        }
+    }
+
+    #[test]
+    #[cfg(target_arch = "x86_64")]
+    fn avx2_kernel_large_weights_fold_lanes_and_round_exactly() {
+        // weights up to 12.2: the lane sums must be folded often (small `lane_limit`), and
+        // terms of 2^51 units or more (w1 w2 s, and w1 w2 above 128) take the scalar rounding
+        if !Simd::Avx2.supported() {
+            return;
+        }
+        let mut a = points(1500, 5, false, false);
+        let mut b = points(600, 6, false, false);
+        for p in [&mut a, &mut b] {
+            for (i, w) in p.w.iter_mut().enumerate() {
+                *w = 5.0 + (i % 9) as f64 * 0.9;
+            }
+        }
+        let edges: Vec<f64> = (0..=20).map(|k| 5.0 * k as f64).collect();
+        let q = super::Quant::for_bounds([12.2f64.powi(2), 12.2f64.powi(2) * 100.0, 0.0]).unwrap();
+        assert!(q.lane_limit < 4096, "{}", q.lane_limit);
+        for metric in metrics(300.0) {
+            for n_regions in [0, 3] {
+                let c = CountConfig {
+                    binning: Binning::new(edges.clone(), 1).unwrap(),
+                    metric,
+                    n_regions,
+                    threads: 2,
+                    shard: (0, 1),
+                };
+                let what = format!("large w {metric:?} reg={n_regions}");
+                assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
             }
         }
     }

@@ -19,6 +19,8 @@ mod counts;
 mod kernel;
 mod regions;
 #[cfg(target_arch = "x86_64")]
+mod simd256;
+#[cfg(target_arch = "x86_64")]
 mod simd512;
 mod sweep;
 mod tree;
@@ -735,6 +737,11 @@ fn job<'a>(
     let slack = 1e-12 * scale;
     let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
     let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
+    let kind = if DataFlags::mixed_z(pa, pb) {
+        KernelKind::Reference
+    } else {
+        kind
+    };
     let w = Walker {
         ta,
         pa,

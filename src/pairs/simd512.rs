@@ -29,14 +29,14 @@ const _: () = assert!(super::kernel::PAIR_BUF_BYTES == 4 * 8 * (BUF + LANES));
 /// The pair buffer of stage 1 (kept in the task's accumulator so it is allocated once).
 #[derive(Default)]
 pub(crate) struct PairBuf {
-    q: Vec<f64>,
-    w: Vec<f64>,
-    z: Vec<f64>,
-    ij: Vec<u64>,
+    pub(super) q: Vec<f64>,
+    pub(super) w: Vec<f64>,
+    pub(super) z: Vec<f64>,
+    pub(super) ij: Vec<u64>,
 }
 
 impl PairBuf {
-    fn ensure(&mut self) {
+    pub(super) fn ensure(&mut self) {
         if self.q.len() < BUF + LANES {
             for v in [&mut self.q, &mut self.w, &mut self.z] {
                 v.resize(BUF + LANES, 0.0);

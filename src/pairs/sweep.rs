@@ -455,9 +455,13 @@ fn sweep_impl(
             let q_hi_pad = (bn.qhi().sqrt() + slack).powi(2) * (1.0 + 1e-9);
             let q_lo_pad = (bn.qlo().max(0.0).sqrt() - slack).max(0.0).powi(2) * (1.0 - 1e-9);
             let quant = Quant::for_data(&pa, pb.as_ref(), cfg.binning.s_max())?;
-            let flags = DataFlags::of(&pa, pb.as_ref().unwrap_or(&pa));
+            let pbr = pb.as_ref().unwrap_or(&pa);
+            let (flags, kind) = match DataFlags::mixed_z(&pa, pbr) {
+                true => (DataFlags::default(), KernelKind::Reference),
+                false => (DataFlags::of(&pa, pbr), KernelKind::Fast),
+            };
             Ok(Var {
-                leaf: kernel::pick_for(KernelKind::Fast, geo.kind, mu, Simd::detect(), flags),
+                leaf: kernel::pick_for(kind, geo.kind, mu, Simd::detect(), flags),
                 quant,
                 geo,
                 bn,

@@ -797,3 +797,42 @@ fn split_subsets_count_like_each_subset_alone() {
     assert!(msg(count_auto_split(&p, 0, &c)).contains("subsets"));
     assert!(msg(count_auto_split(&p, 40, &c)).contains("subset 30"));
 }
+
+#[test]
+fn cross_count_of_zero_and_nonzero_redshift_catalogues_equals_brute_force() {
+    // a catalogue whose redshifts are all 0 is stored without them; against one with
+    // redshifts the pair term w1 w2 (z1 + z2)/2 still needs both (brute force: our own
+    // reference loop)
+    let mut a = boxed(900, 61, 200.0);
+    let mut b = boxed(700, 62, 200.0);
+    for (i, z) in b.redshift.iter_mut().enumerate() {
+        *z = 0.3 + 0.001 * (i % 101) as f64;
+    }
+    let edges: Vec<f64> = (0..=10).map(|k| 8.0 * k as f64).collect();
+    for m in [Metric::Euclidean, Metric::Periodic { box_size: 200.0 }] {
+        for (n_mu, n_reg) in [(1, 0), (1, 2), (2, 0)] {
+            let mut c = cfg(edges.clone(), n_mu, m, n_reg);
+            c.threads = 2;
+            for (i, r) in a.region.iter_mut().enumerate() {
+                *r = (i % 2) as u32;
+            }
+            a.region.resize(a.len(), 0);
+            b.region = (0..b.len() as u32).map(|i| i % 2).collect();
+            if n_reg == 0 {
+                (a.region, b.region) = (Vec::new(), Vec::new());
+            }
+            for (x, y) in [(&a, &b), (&b, &a)] {
+                let got = count_cross(x, y, &c).unwrap();
+                assert_eq!(got, brute_force_cross(x, y, &c), "{m:?} n_mu {n_mu}");
+                assert!(got.wz.iter().any(|&v| v != 0));
+                let sc = SweepConfig {
+                    binning: c.binning.clone(),
+                    n_regions: n_reg,
+                    threads: 2,
+                };
+                let sw = sweep_cross(&[x.clone()], &[y.clone()], &[m], &sc).unwrap();
+                assert_eq!(sw[0], got, "sweep {m:?} n_mu {n_mu}");
+            }
+        }
+    }
+}
