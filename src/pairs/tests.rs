@@ -830,7 +830,8 @@ fn cross_count_of_zero_and_nonzero_redshift_catalogues_equals_brute_force() {
                     n_regions: n_reg,
                     threads: 2,
                 };
-                let sw = sweep_cross(&[x.clone()], &[y.clone()], &[m], &sc).unwrap();
+                let sw = sweep_cross(std::slice::from_ref(x), std::slice::from_ref(y), &[m], &sc)
+                    .unwrap();
                 assert_eq!(sw[0], got, "sweep {m:?} n_mu {n_mu}");
             }
         }
