@@ -816,6 +816,38 @@ fn leaf_fast_body<const L: usize, const K: u8, const MU: bool, const UW: bool, c
     }
 }
 
+/// The dispatch of the SIMD leaf kernels: the two-stage kernel of module `$m` for counts
+/// without mu bins in flat and periodic metrics (linear bins rebuilt in registers, or the
+/// table) and in curved ones where every counted pair takes the series branch of `s_of_q`;
+/// the generic `$l`-lane kernel otherwise.
+#[cfg(target_arch = "x86_64")]
+macro_rules! two_stage_dispatch {
+    ($m:ident, $l:literal, $a:ident, $b:ident, $lp:ident, $g:ident, $bn:ident, $acc:ident) => {{
+        use super::$m::leaf;
+        let lin = $bn.lin.is_some();
+        let series = $bn.qhi().max(0.0).sqrt() / (2.0 * $g.radius) <= SERIES_X_MAX;
+        if !MU && $bn.table_ok && K == FLAT {
+            if lin {
+                leaf::<FLAT, true, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+            } else {
+                leaf::<FLAT, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+            }
+        } else if !MU && $bn.table_ok && K == PER {
+            if lin {
+                leaf::<PER, true, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+            } else {
+                leaf::<PER, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+            }
+        } else if !MU && $bn.table_ok && K == CLO && series {
+            leaf::<CLO, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+        } else if !MU && $bn.table_ok && K == OPE && series {
+            leaf::<OPE, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+        } else {
+            leaf_fast_body::<$l, K, MU, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
+        }
+    }};
+}
+
 #[cfg(target_arch = "x86_64")]
 #[target_feature(enable = "avx512f,avx512dq,popcnt")]
 unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
@@ -826,29 +858,7 @@ unsafe fn leaf_avx512<const K: u8, const MU: bool, const UW: bool, const ZZ: boo
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    use super::simd512::leaf;
-    let lin = bn.lin.is_some();
-    // curved metrics: only where every counted pair takes the series branch of `s_of_q`
-    let series = bn.qhi().max(0.0).sqrt() / (2.0 * g.radius) <= SERIES_X_MAX;
-    if !MU && bn.table_ok && K == FLAT {
-        if lin {
-            leaf::<FLAT, true, UW, ZZ>(a, b, lp, g, bn, acc)
-        } else {
-            leaf::<FLAT, false, UW, ZZ>(a, b, lp, g, bn, acc)
-        }
-    } else if !MU && bn.table_ok && K == PER {
-        if lin {
-            leaf::<PER, true, UW, ZZ>(a, b, lp, g, bn, acc)
-        } else {
-            leaf::<PER, false, UW, ZZ>(a, b, lp, g, bn, acc)
-        }
-    } else if !MU && bn.table_ok && K == CLO && series {
-        leaf::<CLO, false, UW, ZZ>(a, b, lp, g, bn, acc)
-    } else if !MU && bn.table_ok && K == OPE && series {
-        leaf::<OPE, false, UW, ZZ>(a, b, lp, g, bn, acc)
-    } else {
-        leaf_fast_body::<8, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
-    }
+    two_stage_dispatch!(simd512, 8, a, b, lp, g, bn, acc)
 }
 
 #[cfg(target_arch = "x86_64")]
@@ -861,29 +871,7 @@ unsafe fn leaf_avx2<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>
     bn: &Binner,
     acc: &mut Acc,
 ) {
-    use super::simd256::leaf;
-    let lin = bn.lin.is_some();
-    // curved metrics: only where every counted pair takes the series branch of `s_of_q`
-    let series = bn.qhi().max(0.0).sqrt() / (2.0 * g.radius) <= SERIES_X_MAX;
-    if !MU && bn.table_ok && K == FLAT {
-        if lin {
-            leaf::<FLAT, true, UW, ZZ>(a, b, lp, g, bn, acc)
-        } else {
-            leaf::<FLAT, false, UW, ZZ>(a, b, lp, g, bn, acc)
-        }
-    } else if !MU && bn.table_ok && K == PER {
-        if lin {
-            leaf::<PER, true, UW, ZZ>(a, b, lp, g, bn, acc)
-        } else {
-            leaf::<PER, false, UW, ZZ>(a, b, lp, g, bn, acc)
-        }
-    } else if !MU && bn.table_ok && K == CLO && series {
-        leaf::<CLO, false, UW, ZZ>(a, b, lp, g, bn, acc)
-    } else if !MU && bn.table_ok && K == OPE && series {
-        leaf::<OPE, false, UW, ZZ>(a, b, lp, g, bn, acc)
-    } else {
-        leaf_fast_body::<4, K, MU, UW, ZZ>(a, b, lp, g, bn, acc)
-    }
+    two_stage_dispatch!(simd256, 4, a, b, lp, g, bn, acc)
 }
 
 fn leaf_portable<const K: u8, const MU: bool, const UW: bool, const ZZ: bool>(
