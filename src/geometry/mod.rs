@@ -115,6 +115,28 @@ pub struct Positions {
     pub redshift: Vec<f64>,
 }
 
+/// Comoving position (Mpc/h) of row `i` (0-based) of a sky catalogue from its RA, Dec (degrees)
+/// and redshift; a redshift beyond the table is an input error naming the file and row.
+fn sky_position(
+    cat: &Catalogue,
+    table: &DistanceTable,
+    i: usize,
+    ra: f64,
+    dec: f64,
+    zr: f64,
+) -> Result<[f64; 3]> {
+    let chi = table.comoving_radial(zr).ok_or_else(|| {
+        Error::input(format!(
+            "{}: row {}: redshift {zr} is beyond the distance table (z_max = {})",
+            cat.path.display(),
+            i + 1,
+            table.z_max()
+        ))
+    })? * table.cosmology().h;
+    let u = unit_vector(ra, dec);
+    Ok([chi * u[0], chi * u[1], chi * u[2]])
+}
+
 /// Convert a sky catalogue with the fiducial's distance table, or pass a Cartesian one through.
 /// A redshift beyond the table is an input error naming the file and row.
 pub fn positions(cat: &Catalogue, table: Option<&DistanceTable>) -> Result<Positions> {
@@ -129,26 +151,16 @@ pub fn positions(cat: &Catalogue, table: Option<&DistanceTable>) -> Result<Posit
         CatalogueKind::Sky => {
             let table =
                 table.ok_or_else(|| Error::other("sky catalogue needs a distance table"))?;
-            let h = table.cosmology().h;
             let (mut x, mut y, mut z) = (
                 Vec::with_capacity(n),
                 Vec::with_capacity(n),
                 Vec::with_capacity(n),
             );
             for i in 0..n {
-                let zr = cat.pos[2][i];
-                let chi = table.comoving_radial(zr).ok_or_else(|| {
-                    Error::input(format!(
-                        "{}: row {}: redshift {zr} is beyond the distance table (z_max = {})",
-                        cat.path.display(),
-                        i + 1,
-                        table.z_max()
-                    ))
-                })? * h;
-                let u = unit_vector(cat.pos[0][i], cat.pos[1][i]);
-                x.push(chi * u[0]);
-                y.push(chi * u[1]);
-                z.push(chi * u[2]);
+                let p = sky_position(cat, table, i, cat.pos[0][i], cat.pos[1][i], cat.pos[2][i])?;
+                x.push(p[0]);
+                y.push(p[1]);
+                z.push(p[2]);
             }
             Ok(Positions {
                 x,
@@ -178,22 +190,13 @@ pub fn take_positions(cat: &mut Catalogue, table: Option<&DistanceTable>) -> Res
         CatalogueKind::Sky => {
             let table =
                 table.ok_or_else(|| Error::other("sky catalogue needs a distance table"))?;
-            let h = table.cosmology().h;
             let (mut x, mut y, redshift) = (a, b, c);
             let mut z = Vec::with_capacity(redshift.len());
             for (i, &zr) in redshift.iter().enumerate() {
-                let chi = table.comoving_radial(zr).ok_or_else(|| {
-                    Error::input(format!(
-                        "{}: row {}: redshift {zr} is beyond the distance table (z_max = {})",
-                        cat.path.display(),
-                        i + 1,
-                        table.z_max()
-                    ))
-                })? * h;
-                let u = unit_vector(x[i], y[i]);
-                x[i] = chi * u[0];
-                y[i] = chi * u[1];
-                z.push(chi * u[2]);
+                let p = sky_position(cat, table, i, x[i], y[i], zr)?;
+                x[i] = p[0];
+                y[i] = p[1];
+                z.push(p[2]);
             }
             Ok(Positions { x, y, z, redshift })
         }
