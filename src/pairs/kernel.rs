@@ -1071,8 +1071,15 @@ mod flag_tests {
 
     #[test]
     fn specialised_kernels_are_bitwise_reference() {
-        // linear edges (bins rebuilt in registers) and uneven ones (lookup table); curved
-        // metrics with s_max << R take the series branch of the AVX-512 kernel
+        // the detected fast kernels and, forced, the AVX2 ones (the detected level may be
+        // AVX-512); linear edges (bins rebuilt in registers) and uneven ones (lookup table);
+        // curved metrics with s_max << R take the series branch of the two-stage kernels; sizes
+        // not multiples of 4 or 8 leave tail lanes in both stages
+        let mut kinds = vec![KernelKind::Fast];
+        #[cfg(target_arch = "x86_64")]
+        if Simd::Avx2.supported() {
+            kinds.push(KernelKind::FastAt(Simd::Avx2));
+        }
         let lin: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
         let uneven: Vec<f64> = (0..=16).map(|i| 2.0 + 0.4 * (i * i) as f64).collect();
         let metrics = [
@@ -1094,36 +1101,41 @@ mod flag_tests {
                         threads: 2,
                         shard: (0, 1),
                     };
-                    let a = points(1500, 1, uw, zz);
-                    let b = points(700, 2, uw, zz);
-                    let what = format!("{metric:?} uw={uw} zz={zz} n_mu={n_mu}");
+                    let a = points(1203, 1, uw, zz);
+                    let b = points(701, 2, uw, zz);
                     let r = count_impl(&a, None, &c, KernelKind::Reference).unwrap();
-                    let f = count_impl(&a, None, &c, KernelKind::Fast).unwrap();
-                    assert!(r.npairs.iter().sum::<u64>() > 10_000, "{what}");
-                    assert_eq!(r, f, "auto {what}");
-                    if uw {
-                        // w1 w2 = 1: the weighted sums equal the raw counts exactly
-                        for (k, &np) in f.npairs.iter().enumerate() {
-                            assert_eq!(super::super::from_fixed(f.wpairs[k]), np as f64);
+                    let rx = count_impl(&a, Some(&b), &c, KernelKind::Reference).unwrap();
+                    for &kind in &kinds {
+                        let what = format!("{kind:?} {metric:?} uw={uw} zz={zz} n_mu={n_mu}");
+                        let f = count_impl(&a, None, &c, kind).unwrap();
+                        assert!(r.npairs.iter().sum::<u64>() > 10_000, "{what}");
+                        assert_eq!(r, f, "auto {what}");
+                        if uw {
+                            // w1 w2 = 1: the weighted sums equal the raw counts exactly
+                            for (k, &np) in f.npairs.iter().enumerate() {
+                                assert_eq!(super::super::from_fixed(f.wpairs[k]), np as f64);
+                            }
                         }
+                        let f = count_impl(&a, Some(&b), &c, kind).unwrap();
+                        assert_eq!(rx, f, "cross {what}");
                     }
-                    let r = count_impl(&a, Some(&b), &c, KernelKind::Reference).unwrap();
-                    let f = count_impl(&a, Some(&b), &c, KernelKind::Fast).unwrap();
-                    assert_eq!(r, f, "cross {what}");
                 }
             }
         }
     }
-    /// Reference and AVX2 counts (auto and cross) of `a` and `b`, which must agree bitwise.
+
+    /// Reference, AVX2 and detected-level counts (auto and cross) of `a` and `b`, which must
+    /// agree bitwise (the detected level is AVX-512 where the CPU has it).
     #[cfg(target_arch = "x86_64")]
     fn check_avx2(a: &PointSet, b: &PointSet, c: &CountConfig, what: &str) -> u64 {
-        let avx2 = KernelKind::FastAt(Simd::Avx2);
         let r = count_impl(a, None, c, KernelKind::Reference).unwrap();
-        let f = count_impl(a, None, c, avx2).unwrap();
-        assert_eq!(r, f, "auto {what}");
         let r2 = count_impl(a, Some(b), c, KernelKind::Reference).unwrap();
-        let f2 = count_impl(a, Some(b), c, avx2).unwrap();
-        assert_eq!(r2, f2, "cross {what}");
+        for kind in [KernelKind::FastAt(Simd::Avx2), KernelKind::Fast] {
+            let f = count_impl(a, None, c, kind).unwrap();
+            assert_eq!(r, f, "auto {kind:?} {what}");
+            let f2 = count_impl(a, Some(b), c, kind).unwrap();
+            assert_eq!(r2, f2, "cross {kind:?} {what}");
+        }
         r.npairs.iter().sum::<u64>()
     }
 
@@ -1135,41 +1147,6 @@ mod flag_tests {
             Metric::Closed { radius: 1e4 },
             Metric::Open { radius: 1e4 },
         ]
-    }
-
-    #[test]
-    #[cfg(target_arch = "x86_64")]
-    fn avx2_kernel_is_bitwise_reference() {
-        // the AVX2 kernel forced (the detected level may be AVX-512): every metric, linear
-        // (bins rebuilt in registers) and uneven (table) edges, unit / general weights, zero /
-        // non-zero redshifts, with and without regions; mu bins take the generic AVX2 kernel
-        if !Simd::Avx2.supported() {
-            eprintln!("no AVX2 on this CPU: AVX2 kernel not checked");
-            return;
-        }
-        let lin: Vec<f64> = (0..=20).map(|i| 5.0 * i as f64).collect();
-        let uneven: Vec<f64> = (0..=16).map(|i| 2.0 + 0.4 * (i * i) as f64).collect();
-        for (metric, edges) in metrics(300.0)
-            .into_iter()
-            .flat_map(|m| [(m, lin.clone()), (m, uneven.clone())])
-        {
-            for (uw, zz) in [(true, true), (true, false), (false, true), (false, false)] {
-                for (n_mu, n_regions) in [(1, 0), (1, 3), (2, 0)] {
-                    let c = CountConfig {
-                        binning: Binning::new(edges.clone(), n_mu).unwrap(),
-                        metric,
-                        n_regions,
-                        threads: 2,
-                        shard: (0, 1),
-                    };
-                    // sizes not multiples of 4 or 8: tail lanes in both stages
-                    let a = points(1203, 1, uw, zz);
-                    let b = points(701, 2, uw, zz);
-                    let what = format!("{metric:?} uw={uw} zz={zz} n_mu={n_mu} reg={n_regions}");
-                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
-                }
-            }
-        }
     }
 
     #[test]
