@@ -826,21 +826,23 @@ macro_rules! two_stage_dispatch {
         use super::$m::leaf;
         let lin = $bn.lin.is_some();
         let series = $bn.qhi().max(0.0).sqrt() / (2.0 * $g.radius) <= SERIES_X_MAX;
-        if !MU && $bn.table_ok && K == FLAT {
+        // one row of the b leaf must fit the pair buffer (leaves hold 32 points)
+        let two = !MU && $bn.table_ok && $lp.b1 - $lp.b0 <= super::simd512::BUF;
+        if two && K == FLAT {
             if lin {
                 leaf::<FLAT, true, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
             } else {
                 leaf::<FLAT, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
             }
-        } else if !MU && $bn.table_ok && K == PER {
+        } else if two && K == PER {
             if lin {
                 leaf::<PER, true, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
             } else {
                 leaf::<PER, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
             }
-        } else if !MU && $bn.table_ok && K == CLO && series {
+        } else if two && K == CLO && series {
             leaf::<CLO, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
-        } else if !MU && $bn.table_ok && K == OPE && series {
+        } else if two && K == OPE && series {
             leaf::<OPE, false, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
         } else {
             leaf_fast_body::<$l, K, MU, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)

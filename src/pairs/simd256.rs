@@ -180,7 +180,7 @@ unsafe fn step<const K: u8, const UW: bool, const ZZ: bool, const TAIL: bool>(
 ///
 /// # Safety
 /// The CPU must support AVX2; `bn.table_ok` must hold; `acc` must have been built for `bn.nb`
-/// bins.
+/// bins; the b leaf holds at most `BUF` points.
 #[target_feature(enable = "avx2")]
 pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,

@@ -52,8 +52,8 @@ impl PairBuf {
 /// redshift terms (unit weights, zero redshifts).
 ///
 /// # Safety
-/// The CPU must support AVX-512F, AVX-512DQ and POPCNT; `bn.table_ok` must hold; `acc` must have been
-/// built for `bn.nb` bins.
+/// The CPU must support AVX-512F, AVX-512DQ and POPCNT; `bn.table_ok` must hold; `acc` must have
+/// been built for `bn.nb` bins; the b leaf holds at most `BUF` points.
 #[target_feature(enable = "avx512f,avx512dq,popcnt")]
 pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ: bool>(
     a: &Pts,
