@@ -387,19 +387,13 @@ fn prepare(p: PointSet, name: &str, cfg: &CountConfig, geo: &Geo) -> crate::Resu
 /// Reorder points into tree order in place, one column at a time: no column is copied, the
 /// only scratch is one bit per point (the peak stays at the columns, the permutation and the
 /// tree).
-fn permute<I: PermIndex + Sync>(mut p: Pts, perm: &[I]) -> Pts {
+fn permute<I: PermIndex>(mut p: Pts, perm: &[I]) -> Pts {
+    let mut done = vec![0u64; perm.len().div_ceil(64)];
     let Pts { c, f, w, z, reg } = &mut p;
-    let mut cols: Vec<&mut Vec<f64>> = c.iter_mut().chain(f.iter_mut()).chain([w, z]).collect();
-    cols.retain(|v| !v.is_empty());
-    // columns are independent: one task (and one bitmap) each, on the caller's rayon pool
-    let words = perm.len().div_ceil(64);
-    rayon::join(
-        || {
-            cols.par_iter_mut()
-                .for_each(|v| permute_in_place(v, perm, &mut vec![0u64; words]))
-        },
-        || permute_in_place(reg, perm, &mut vec![0u64; words]),
-    );
+    for v in c.iter_mut().chain(f.iter_mut()).chain([w, z]) {
+        permute_in_place(v, perm, &mut done);
+    }
+    permute_in_place(reg, perm, &mut done);
     p
 }
 
@@ -643,7 +637,7 @@ impl Indexed {
         // the tree build uses the count's threads (the tree does not depend on them)
         let pool = build_pool(cfg.threads)?;
         let (tree, perm) = tree::build_in(&pts.c, Some(&pool));
-        let pts = pool.install(|| permute(pts, &perm));
+        let pts = permute(pts, &perm);
         Ok(Indexed {
             pts,
             tree,

@@ -428,14 +428,11 @@ fn sweep_impl(
         }
         geo_bn.push((geo, bn));
     }
-    // the sweep's threads (results do not depend on them)
-    let pool = super::build_pool(cfg.threads)?;
     let (ta, perm_a) = build_tree(&pa_list);
-    let pa_list: Vec<Pts> =
-        pool.install(|| pa_list.into_iter().map(|p| permute(p, &perm_a)).collect());
+    let pa_list: Vec<Pts> = pa_list.into_iter().map(|p| permute(p, &perm_a)).collect();
     let tb_perm = if b.is_some() {
         let (t, perm) = build_tree(&pb_list);
-        pb_list = pool.install(|| pb_list.into_iter().map(|p| permute(p, &perm)).collect());
+        pb_list = pb_list.into_iter().map(|p| permute(p, &perm)).collect();
         Some(t)
     } else {
         None
@@ -495,6 +492,7 @@ fn sweep_impl(
             .collect()
     };
     let new_accs = || -> Vec<Acc> { vars.iter().map(|v| Acc::new(nb, nreg, v.quant)).collect() };
+    let pool = super::build_pool(cfg.threads)?;
     let out = pool.install(|| {
         tasks
             .par_iter()
