@@ -422,8 +422,11 @@ impl Quant {
     }
 }
 
-/// Bytes of the AVX-512 kernel's pair buffer (four columns of `simd512::BUF` + one vector).
-pub(crate) const PAIR_BUF_BYTES: usize = 4 * 8 * (2048 + LANES);
+/// Pairs the two-stage SIMD kernels buffer before they accumulate them (the buffer holds one
+/// more vector of slack for full-width stores of compressed lanes).
+pub(crate) const PAIR_BUF: usize = 2048;
+/// Bytes of that pair buffer: four columns (q, w1 w2, mean z, pair indices).
+const PAIR_BUF_BYTES: usize = 4 * 8 * (PAIR_BUF + LANES);
 
 /// Lanes of the SIMD lane histograms (slot `bin * LANES + lane`).
 pub(crate) const LANES: usize = 8;
@@ -541,6 +544,12 @@ impl Acc {
         }
         self.pending += tests;
         true
+    }
+
+    /// Buffered pairs one stage-2 piece may add before the lane sums are folded: each lane
+    /// slot takes at most ceil(len / LANES) terms of a piece, and `lane_limit` terms fit.
+    pub fn lane_piece(&self) -> usize {
+        (self.q.lane_limit.min(PAIR_BUF as u64) as usize) * LANES
     }
 
     /// Fold the lane histograms into the i128 totals (only the columns in use: the unit-weight
@@ -827,7 +836,7 @@ macro_rules! two_stage_dispatch {
         let lin = $bn.lin.is_some();
         let series = $bn.qhi().max(0.0).sqrt() / (2.0 * $g.radius) <= SERIES_X_MAX;
         // one row of the b leaf must fit the pair buffer (leaves hold 32 points)
-        let two = !MU && $bn.table_ok && $lp.b1 - $lp.b0 <= super::simd512::BUF;
+        let two = !MU && $bn.table_ok && $lp.b1 - $lp.b0 <= PAIR_BUF;
         if two && K == FLAT {
             if lin {
                 leaf::<FLAT, true, UW, ZZ>($a, $b, $lp, $g, $bn, $acc)
@@ -1151,6 +1160,25 @@ mod flag_tests {
         ]
     }
 
+    /// `check_avx2` with `edges` (no mu bins) in every metric (periodic box side `box_size`),
+    /// without and with 3 regions; each count must hold more than 10 000 pairs.
+    #[cfg(target_arch = "x86_64")]
+    fn check_avx2_metrics(a: &PointSet, b: &PointSet, edges: &[f64], box_size: f64, what: &str) {
+        for metric in metrics(box_size) {
+            for n_regions in [0, 3] {
+                let c = CountConfig {
+                    binning: Binning::new(edges.to_vec(), 1).unwrap(),
+                    metric,
+                    n_regions,
+                    threads: 2,
+                    shard: (0, 1),
+                };
+                let what = format!("{what} {metric:?} reg={n_regions}");
+                assert!(check_avx2(a, b, &c, &what) > 10_000, "{what}");
+            }
+        }
+    }
+
     #[test]
     #[cfg(target_arch = "x86_64")]
     fn avx2_kernel_bins_pairs_on_edges_like_reference() {
@@ -1175,20 +1203,8 @@ mod flag_tests {
         let b = lattice(7, 2.0);
         let lin: Vec<f64> = (0..=9).map(|i| i as f64).collect();
         let uneven = vec![1.0, 2.0, 3.0, 5.0, 8.0, 9.0];
-        for metric in metrics(19.0) {
-            for edges in [lin.clone(), uneven.clone()] {
-                for n_regions in [0, 3] {
-                    let c = CountConfig {
-                        binning: Binning::new(edges.clone(), 1).unwrap(),
-                        metric,
-                        n_regions,
-                        threads: 2,
-                        shard: (0, 1),
-                    };
-                    let what = format!("lattice {metric:?} {edges:?} reg={n_regions}");
-                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
-                }
-            }
+        for edges in [lin, uneven] {
+            check_avx2_metrics(&a, &b, &edges, 19.0, &format!("lattice {edges:?}"));
         }
     }
 
@@ -1232,19 +1248,8 @@ mod flag_tests {
                 }
             }
             let b = points(300, 3, false, false);
-            for metric in metrics(100.0) {
-                for n_regions in [0, 3] {
-                    let c = CountConfig {
-                        binning: Binning::new(edges.clone(), 1).unwrap(),
-                        metric,
-                        n_regions,
-                        threads: 2,
-                        shard: (0, 1),
-                    };
-                    let what = format!("near edges {metric:?} {} reg={n_regions}", edges[1]);
-                    assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
-                }
-            }
+            let what = format!("near edges {}", edges[1]);
+            check_avx2_metrics(&a, &b, &edges, 100.0, &what);
         }
     }
 
@@ -1266,18 +1271,6 @@ mod flag_tests {
         let edges: Vec<f64> = (0..=20).map(|k| 5.0 * k as f64).collect();
         let q = super::Quant::for_bounds([12.2f64.powi(2), 12.2f64.powi(2) * 100.0, 0.0]).unwrap();
         assert!(q.lane_limit < 4096, "{}", q.lane_limit);
-        for metric in metrics(300.0) {
-            for n_regions in [0, 3] {
-                let c = CountConfig {
-                    binning: Binning::new(edges.clone(), 1).unwrap(),
-                    metric,
-                    n_regions,
-                    threads: 2,
-                    shard: (0, 1),
-                };
-                let what = format!("large w {metric:?} reg={n_regions}");
-                assert!(check_avx2(&a, &b, &c, &what) > 10_000, "{what}");
-            }
-        }
+        check_avx2_metrics(&a, &b, &edges, 300.0, "large w");
     }
 }

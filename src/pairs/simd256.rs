@@ -16,8 +16,9 @@
 //! magic-number addition where that is exact and with the scalar conversion elsewhere.
 #![cfg(target_arch = "x86_64")]
 
+use super::kernel::PAIR_BUF as BUF;
 use super::kernel::{Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER};
-use super::simd512::{PairBuf, BUF};
+use super::simd512::PairBuf;
 use std::arch::x86_64::*;
 
 /// Doubles per vector.
@@ -398,7 +399,7 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
     let mut tws = [0i64; LANES];
     // each lane slot takes at most ceil(len / 8) terms of a piece: fold the lane sums before
     // they could overflow (only very large weights make a piece shorter than the buffer)
-    let piece = (acc.q.lane_limit.min(BUF as u64) as usize) * LANES;
+    let piece = acc.lane_piece();
     let mut e0 = 0;
     while e0 < n {
         let e1 = (e0 + piece).min(n);

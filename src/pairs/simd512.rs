@@ -18,13 +18,10 @@
 //! than s_max from the whole b leaf box are skipped before any pair is tested.
 #![cfg(target_arch = "x86_64")]
 
-use super::kernel::{Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PER};
+use super::kernel::{
+    Acc, Binner, Geo, LeafPair, Pts, ASINH_C, ASIN_C, CLO, LANES, OPE, PAIR_BUF as BUF, PER,
+};
 use std::arch::x86_64::*;
-
-/// Pairs the buffer collects before they are accumulated (one more vector of slack takes the
-/// full-width stores of compressed lanes).
-pub(crate) const BUF: usize = 2048;
-const _: () = assert!(super::kernel::PAIR_BUF_BYTES == 4 * 8 * (BUF + LANES));
 
 /// The pair buffer of stage 1 (kept in the task's accumulator so it is allocated once).
 #[derive(Default)]
@@ -268,7 +265,7 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
     let mut tws = [0i64; LANES];
     // each lane slot takes at most ceil(len / 8) terms of a piece: fold the lane sums before
     // they could overflow (only very large weights make a piece shorter than the buffer)
-    let piece = (acc.q.lane_limit.min(BUF as u64) as usize) * LANES;
+    let piece = acc.lane_piece();
     let mut e0 = 0;
     while e0 < n {
         let e1 = (e0 + piece).min(n);
