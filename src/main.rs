@@ -177,6 +177,13 @@ struct BenchArgs {
     /// Write the report as JSON.
     #[arg(long)]
     out: Option<PathBuf>,
+    /// Run only these parts, comma-separated: boxes, survey, split-rr, sweep (default: all).
+    /// For example `--only split-rr --scale 1` times split RR on the full-size randoms.
+    #[arg(long, value_delimiter = ',')]
+    only: Vec<String>,
+    /// Skip the kiddo and cKDTree baselines (for full-scale runs of our own counter).
+    #[arg(long)]
+    no_baselines: bool,
 }
 
 #[derive(Args)]
@@ -782,6 +789,12 @@ fn run(cli: Cli) -> Result<()> {
                 python: a.python.clone(),
                 workdir: a.workdir.clone(),
                 seed: a.seed,
+                only: a
+                    .only
+                    .iter()
+                    .map(|n| app::bench::BenchPart::parse(n))
+                    .collect::<Result<_>>()?,
+                baselines: !a.no_baselines,
             };
             app::bench::run_and_report(&opt, a.out.as_deref())?;
         }

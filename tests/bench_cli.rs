@@ -55,3 +55,61 @@ fn bench_quick_writes_json() {
     assert!(v["split_rr_time_ratio"].as_f64().unwrap() > 0.0);
     assert!(work.join("box_3000.csv").exists());
 }
+
+#[test]
+fn bench_only_runs_the_chosen_part() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("bench.json");
+    let st = Command::new(env!("CARGO_BIN_EXE_ringscale"))
+        .args([
+            "bench",
+            "--quick",
+            "--threads",
+            "2",
+            "--only",
+            "split-rr",
+            "--out",
+        ])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(
+        st.status.success(),
+        "bench failed: {}",
+        String::from_utf8_lossy(&st.stderr)
+    );
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    // no box or survey rows, no sweep, but the split-RR ratios
+    assert!(v["rows"].as_array().unwrap().is_empty(), "{v}");
+    assert!(v["sweep5_time_ratio"].is_null(), "{v}");
+    assert!(v["split_rr_time_ratio"].as_f64().unwrap() > 0.0);
+    assert!(v["split_rr_time_ratio_1t"].as_f64().unwrap() > 0.0);
+
+    // boxes only, without the baselines
+    let st = Command::new(env!("CARGO_BIN_EXE_ringscale"))
+        .args(["bench", "--quick", "--threads", "2", "--only", "boxes"])
+        .args(["--no-baselines", "--out"])
+        .arg(&out)
+        .output()
+        .unwrap();
+    assert!(st.status.success());
+    let v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    let rows = v["rows"].as_array().unwrap();
+    assert_eq!(rows.len(), 2, "{v}");
+    for r in rows {
+        assert!(r["workload"].as_str().unwrap().starts_with("box "), "{r}");
+        assert!(r["pairs"].as_u64().unwrap() > 0, "{r}");
+        assert!(r["vs_kiddo"].is_null() && r["vs_scipy"].is_null(), "{r}");
+    }
+    assert!(v["split_rr_time_ratio"].is_null(), "{v}");
+
+    let bad = Command::new(env!("CARGO_BIN_EXE_ringscale"))
+        .args(["bench", "--quick", "--only", "boxes,nope"])
+        .output()
+        .unwrap();
+    assert_eq!(bad.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&bad.stderr);
+    assert!(err.contains("nope") && err.contains("split-rr"), "{err}");
+}
