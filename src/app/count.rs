@@ -259,91 +259,142 @@ pub struct Prepared {
 }
 
 impl Prepared {
+    /// Index the catalogues that `pieces` need, once, for any number of piece counts. The point
+    /// sets move into their indexes; only the split-random subsets are copies (built first, so
+    /// at the peak the randoms exist twice, never three times).
+    pub fn index_for(self, pieces: &[Piece]) -> Result<IndexedCount> {
+        let Prepared {
+            header,
+            cfg,
+            data,
+            randoms,
+            ..
+        } = self;
+        let m = header.meta.rr_splits;
+        let split = m > 1;
+        let needs = |f: fn(&Piece) -> bool| pieces.iter().any(f);
+        let need_data = needs(|p| matches!(p, Piece::Dd | Piece::Dr));
+        let need_randoms =
+            needs(|p| matches!(p, Piece::Dr)) || (!split && needs(|p| matches!(p, Piece::Rr(_))));
+        let mut which: Vec<usize> = pieces
+            .iter()
+            .filter_map(|p| match p {
+                Piece::Rr(s) if split => Some(*s),
+                _ => None,
+            })
+            .collect();
+        which.sort_unstable();
+        which.dedup();
+        let no_randoms = || Error::input("this count has no randoms");
+        let mut subsets: Vec<Option<pairs::Indexed>> = (0..m).map(|_| None).collect();
+        if !which.is_empty() {
+            let r = randoms.as_ref().ok_or_else(no_randoms)?;
+            let built = pairs::index_some_subsets(r, m, &which, "randoms", &cfg)?;
+            for (s, ix) in which.iter().zip(built) {
+                subsets[*s] = Some(ix);
+            }
+        }
+        let data = if need_data {
+            Some(pairs::Indexed::new(data, "catalogue", &cfg)?)
+        } else {
+            None
+        };
+        let randoms = match randoms {
+            Some(r) if need_randoms => Some(pairs::Indexed::new(r, "catalogue B", &cfg)?),
+            Some(_) => None,
+            None if need_randoms => return Err(no_randoms()),
+            None => None,
+        };
+        Ok(IndexedCount {
+            header,
+            cfg,
+            data,
+            randoms,
+            subsets,
+        })
+    }
+
+    /// Count every piece in order (`count_piece` on each), the split-random subsets in one
+    /// parallel job.
+    pub fn count_all(self, shard: (usize, usize)) -> Result<(CountHeader, Vec<PairCounts>)> {
+        let pieces = self.header.pieces.clone();
+        let ic = self.index_for(&pieces)?;
+        let split = ic.header.meta.rr_splits > 1;
+        let mut rr_split: Vec<Option<PairCounts>> =
+            if split && pieces.iter().any(|q| matches!(q, Piece::Rr(_))) {
+                ic.count_rr_splits(shard)?.into_iter().map(Some).collect()
+            } else {
+                Vec::new()
+            };
+        let mut counts = Vec::with_capacity(pieces.len());
+        for &piece in &pieces {
+            counts.push(match piece {
+                Piece::Rr(s) if split => rr_split
+                    .get_mut(s)
+                    .and_then(Option::take)
+                    .ok_or_else(|| Error::other("split RR: subset count missing"))?,
+                _ => ic.count_piece(piece, shard)?,
+            });
+        }
+        Ok((ic.header, counts))
+    }
+}
+
+/// A count's catalogues indexed once (`Prepared::index_for`): `ringscale run` counts many
+/// pieces and parts of pieces from one index.
+pub struct IndexedCount {
+    pub header: CountHeader,
+    cfg: CountConfig,
+    data: Option<pairs::Indexed>,
+    randoms: Option<pairs::Indexed>,
+    /// Split-random subset s (when indexed).
+    subsets: Vec<Option<pairs::Indexed>>,
+}
+
+impl IndexedCount {
+    fn cfg(&self, shard: (usize, usize)) -> CountConfig {
+        CountConfig {
+            shard,
+            ..self.cfg.clone()
+        }
+    }
+
+    fn not_indexed(what: &str) -> Error {
+        Error::other(format!("count: {what} not indexed for this piece"))
+    }
+
     /// Count one piece, restricted to part `shard` = (k, N) of its tasks.
+    pub fn count_piece(&self, piece: Piece, shard: (usize, usize)) -> Result<PairCounts> {
+        let cfg = self.cfg(shard);
+        let data = || self.data.as_ref().ok_or_else(|| Self::not_indexed("data"));
+        let randoms = || {
+            self.randoms
+                .as_ref()
+                .ok_or_else(|| Self::not_indexed("randoms"))
+        };
+        match piece {
+            Piece::Dd => pairs::count_auto_indexed(data()?, &cfg),
+            Piece::Dr => pairs::count_cross_indexed(data()?, randoms()?, &cfg),
+            Piece::Rr(_) if self.header.meta.rr_splits == 1 => {
+                pairs::count_auto_indexed(randoms()?, &cfg)
+            }
+            Piece::Rr(s) => {
+                let sub = self.subsets.get(s).and_then(Option::as_ref);
+                pairs::count_auto_indexed(sub.ok_or_else(|| Self::not_indexed("subset"))?, &cfg)
+            }
+        }
+    }
+
     /// Count all split-random RR pieces (`Piece::Rr(0..m)`, m = `rr_splits` > 1) in one
     /// parallel job, restricted to part `shard` of each subset's tasks: result s equals
     /// `count_piece(Piece::Rr(s), shard)` bitwise.
     pub fn count_rr_splits(&self, shard: (usize, usize)) -> Result<Vec<PairCounts>> {
-        let cfg = CountConfig {
-            shard,
-            ..self.cfg.clone()
-        };
-        let pr = self
-            .randoms
-            .as_ref()
-            .ok_or_else(|| Error::input("this count has no randoms"))?;
-        pairs::count_auto_split(pr, self.header.meta.rr_splits, &cfg)
-    }
-
-    pub fn count_piece(&self, piece: Piece, shard: (usize, usize)) -> Result<PairCounts> {
-        let cfg = CountConfig {
-            shard,
-            ..self.cfg.clone()
-        };
-        let pr = || {
-            self.randoms
-                .as_ref()
-                .ok_or_else(|| Error::input("this count has no randoms"))
-        };
-        match piece {
-            Piece::Dd => pairs::count_auto(&self.data, &cfg),
-            Piece::Dr => pairs::count_cross(&self.data, pr()?, &cfg),
-            Piece::Rr(s) => {
-                let m = self.header.meta.rr_splits;
-                if m == 1 {
-                    pairs::count_auto(pr()?, &cfg)
-                } else {
-                    pairs::count_auto(&subset(pr()?, s, m), &cfg)
-                }
-            }
-        }
-    }
-}
-
-impl Prepared {
-    /// Count every piece in order, like `count_piece` on each, but indexing each catalogue
-    /// once from its moved point set: `count_piece` copies a catalogue per piece, so the
-    /// catalogues would exist twice at the peak. Split RR needs the randoms in file order for
-    /// its subsets, so they are then kept and their index is built from a copy.
-    pub fn count_all(mut self, shard: (usize, usize)) -> Result<(CountHeader, Vec<PairCounts>)> {
-        let cfg = CountConfig {
-            shard,
-            ..self.cfg.clone()
-        };
-        let split = self.header.meta.rr_splits > 1;
-        let data = pairs::Indexed::new(std::mem::take(&mut self.data), "catalogue", &cfg)?;
-        let randoms = match self.randoms.as_mut() {
-            Some(r) => {
-                let r = if split { r.clone() } else { std::mem::take(r) };
-                Some(pairs::Indexed::new(r, "catalogue B", &cfg)?)
-            }
-            None => None,
-        };
-        let ir = || {
-            randoms
-                .as_ref()
-                .ok_or_else(|| Error::input("this count has no randoms"))
-        };
-        // split-random RR: all subsets in one parallel job
-        let mut rr_split: Vec<Option<PairCounts>> =
-            if split && self.header.pieces.iter().any(|q| matches!(q, Piece::Rr(_))) {
-                self.count_rr_splits(shard)?.into_iter().map(Some).collect()
-            } else {
-                Vec::new()
-            };
-        let mut counts = Vec::with_capacity(self.header.pieces.len());
-        for &piece in &self.header.pieces {
-            counts.push(match piece {
-                Piece::Dd => pairs::count_auto_indexed(&data, &cfg)?,
-                Piece::Dr => pairs::count_cross_indexed(&data, ir()?, &cfg)?,
-                Piece::Rr(_) if !split => pairs::count_auto_indexed(ir()?, &cfg)?,
-                Piece::Rr(s) => rr_split
-                    .get_mut(s)
-                    .and_then(Option::take)
-                    .ok_or_else(|| Error::other("split RR: subset count missing"))?,
-            });
-        }
-        Ok((self.header, counts))
+        let subs: Vec<&pairs::Indexed> = self
+            .subsets
+            .iter()
+            .map(|s| s.as_ref().ok_or_else(|| Self::not_indexed("subset")))
+            .collect::<Result<_>>()?;
+        pairs::count_auto_subsets(&subs, &self.cfg(shard))
     }
 }
 

@@ -853,9 +853,26 @@ pub fn index_subsets(
     name: &str,
     cfg: &CountConfig,
 ) -> crate::Result<Vec<Indexed>> {
+    let all: Vec<usize> = (0..m).collect();
+    index_some_subsets(p, m, &all, name, cfg)
+}
+
+/// Index the subsets `every_mth(p, k, m)` for k in `which` (in that order), in parallel.
+pub fn index_some_subsets(
+    p: &PointSet,
+    m: usize,
+    which: &[usize],
+    name: &str,
+    cfg: &CountConfig,
+) -> crate::Result<Vec<Indexed>> {
     if m == 0 {
         return Err(crate::Error::input(format!(
             "{name}: number of subsets must be >= 1"
+        )));
+    }
+    if let Some(k) = which.iter().find(|&&k| k >= m) {
+        return Err(crate::Error::input(format!(
+            "{name}: subset {k} of {m} does not exist"
         )));
     }
     // one subset per worker task; each tree built on one thread (trees do not depend on it)
@@ -865,9 +882,9 @@ pub fn index_subsets(
     };
     let pool = build_pool(cfg.threads)?;
     pool.install(|| {
-        (0..m)
-            .into_par_iter()
-            .map(|k| Indexed::new(every_mth(p, k, m), &format!("{name} subset {k}"), &one))
+        which
+            .par_iter()
+            .map(|&k| Indexed::new(every_mth(p, k, m), &format!("{name} subset {k}"), &one))
             .collect()
     })
 }
@@ -875,8 +892,8 @@ pub fn index_subsets(
 /// Auto counts of several catalogues (typically the split-random subsets of RR) in one parallel
 /// job: one pool, the top-level tasks of all catalogues in one list. Result k is bitwise
 /// `count_auto_indexed(&subsets[k], cfg)`, for any thread count and shard.
-pub fn count_auto_subsets(
-    subsets: &[Indexed],
+pub fn count_auto_subsets<S: std::borrow::Borrow<Indexed> + Sync>(
+    subsets: &[S],
     cfg: &CountConfig,
 ) -> crate::Result<Vec<PairCounts>> {
     let (geo, bn) = check_config(cfg)?;
@@ -886,7 +903,7 @@ pub fn count_auto_subsets(
     let jobs = pool.install(|| {
         subsets
             .par_iter()
-            .map(|s| job(s, None, cfg, geo, &bn, KernelKind::Fast))
+            .map(|s| job(s.borrow(), None, cfg, geo, &bn, KernelKind::Fast))
             .collect::<crate::Result<Vec<_>>>()
     })?;
     Ok(run_jobs(&jobs, cfg, &pool))

@@ -790,12 +790,30 @@ fn split_subsets_count_like_each_subset_alone() {
                 "{what} shard, subset {k}"
             );
         }
+        // some subsets only, in any order: the same trees
+        let some = index_some_subsets(&p, split, &[2, 0], "randoms", &c).unwrap();
+        let part = count_auto_subsets(&some, &c).unwrap();
+        assert_eq!(
+            part,
+            vec![
+                count_auto(&subs[2], &c).unwrap(),
+                count_auto(&subs[0], &c).unwrap()
+            ],
+            "{what}"
+        );
     }
     let c = cfg(linear_edges(), 1, Metric::Euclidean, 0);
     let p = shell(30, 9, 9.0).0;
     let msg = |r: crate::Result<Vec<PairCounts>>| r.unwrap_err().to_string();
     assert!(msg(count_auto_split(&p, 0, &c)).contains("subsets"));
     assert!(msg(count_auto_split(&p, 40, &c)).contains("subset 30"));
+    let e = index_some_subsets(&p, 3, &[1, 3], "randoms", &c)
+        .err()
+        .map(|e| e.to_string());
+    assert!(
+        e.as_deref().unwrap_or("").contains("subset 3 of 3"),
+        "{e:?}"
+    );
 }
 
 #[test]

@@ -370,6 +370,9 @@ pub fn execute(plan: &Plan, opt: &RunOptions, log: &Logger) -> Result<RunSummary
                 checkpoint::write(&header_path, &h)?;
                 header = Some(h);
             }
+            // each catalogue indexed once for all the parts counted here
+            let need: Vec<Piece> = missing.iter().map(|&(p, _)| p).collect();
+            let prep = prep.index_for(&need)?;
             for &(p, u) in &missing {
                 let tp = Instant::now();
                 let c = prep.count_piece(p, (u, units))?;
