@@ -234,9 +234,24 @@ fn config(metric: Metric, threads: usize) -> Result<CountConfig> {
     })
 }
 
-/// Read a file through the library and convert it to a point set.
-fn load(path: &Path, map: &ColumnMap, table: Option<&DistanceTable>) -> Result<PointSet> {
-    let mut cat = read_catalogue(path, map, &RowFilter::default())?;
+/// Run `f` on a pool of `threads` threads: the catalogue reader parses on the current pool, so
+/// 1-thread runs read with one thread.
+fn on_threads<T: Send>(threads: usize, f: impl FnOnce() -> Result<T> + Send) -> Result<T> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::resource(format!("cannot start {threads} worker threads: {e}")))?
+        .install(f)
+}
+
+/// Read a file through the library with `threads` threads and convert it to a point set.
+fn load(
+    path: &Path,
+    map: &ColumnMap,
+    table: Option<&DistanceTable>,
+    threads: usize,
+) -> Result<PointSet> {
+    let mut cat = on_threads(threads, || read_catalogue(path, map, &RowFilter::default()))?;
     // reuse the catalogue's columns: the catalogue and the point set never both exist
     let pos = take_positions(&mut cat, table)?;
     Ok(PointSet {
@@ -485,7 +500,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
                 Metric::Euclidean
             };
             let run1 = |t: usize| -> Result<u64> {
-                let p = load(&file, &cart, None)?;
+                let p = load(&file, &cart, None, t)?;
                 let cfg = config(metric, t)?;
                 let ip = pairs::Indexed::new(p, "box", &cfg)?;
                 Ok(total_pairs(&pairs::count_auto_indexed(&ip, &cfg)?))
@@ -497,7 +512,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
             );
             let mut r = row(&name, vec![n], m, threads);
             let t = Instant::now();
-            let p = load(&file, &cart, None)?;
+            let p = load(&file, &cart, None, threads)?;
             let read_s = t.elapsed().as_secs_f64();
             add_refs(
                 &mut r,
@@ -534,8 +549,8 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
     drop((gal, ran));
     let sky = ColumnMap::sky("RA", "DEC", "Z", vec![], None);
     let full = |t: usize| -> Result<u64> {
-        let g = load(&gfile, &sky, Some(&table))?;
-        let r = load(&rfile, &sky, Some(&table))?;
+        let g = load(&gfile, &sky, Some(&table), t)?;
+        let r = load(&rfile, &sky, Some(&table), t)?;
         let cfg = config(metric, t)?;
         // each catalogue indexed once, shared by the three counts
         let g = pairs::Indexed::new(g, "galaxies", &cfg)?;
@@ -556,7 +571,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
 
     // RR alone (for the baselines) and split RR
     let rr_full = |t: usize| -> Result<u64> {
-        let r = load(&rfile, &sky, Some(&table))?;
+        let r = load(&rfile, &sky, Some(&table), t)?;
         let cfg = config(metric, t)?;
         let r = pairs::Indexed::new(r, "randoms", &cfg)?;
         Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
@@ -564,7 +579,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
     let m = both(threads, rr_full)?;
     let mut rrow = row("survey RR", vec![nr], m, threads);
     let t = Instant::now();
-    let rp = load(&rfile, &sky, Some(&table))?;
+    let rp = load(&rfile, &sky, Some(&table), threads)?;
     let read_s = t.elapsed().as_secs_f64();
     // the Python reference needs Cartesian positions: export the converted randoms
     let xfile = dir.join("survey_randoms_xyz.csv");
@@ -619,13 +634,13 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
     // traversal, against one single-fiducial RR count; 1 thread, CPU seconds, both including
     // reading the file and the conversion to positions.
     let single = || -> Result<u64> {
-        let r = load(&rfile, &sky, Some(&table))?;
+        let r = load(&rfile, &sky, Some(&table), 1)?;
         let cfg = config(metric, 1)?;
         let r = pairs::Indexed::new(r, "randoms", &cfg)?;
         Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
     };
     let sweep5 = || -> Result<u64> {
-        let cat = read_catalogue(&rfile, &sky, &RowFilter::default())?;
+        let cat = on_threads(1, || read_catalogue(&rfile, &sky, &RowFilter::default()))?;
         let mut sets = Vec::new();
         let mut metrics = Vec::new();
         for ok in SWEEP_OMEGA_K {

@@ -426,12 +426,23 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     if opt.rr_splits == 0 {
         return Err(Error::input("--rr-splits must be >= 1"));
     }
-    let mut data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
-    let mut randoms = opt
-        .randoms
-        .as_ref()
-        .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
-        .transpose()?;
+    // the readers parse on the current pool: give them the count's threads
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(opt.threads)
+        .build()
+        .map_err(|e| {
+            Error::resource(format!("cannot start {} worker threads: {e}", opt.threads))
+        })?;
+    let (mut data, mut randoms) = pool.install(|| -> Result<_> {
+        let data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
+        let randoms = opt
+            .randoms
+            .as_ref()
+            .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
+            .transpose()?;
+        Ok((data, randoms))
+    })?;
+    drop(pool);
     for c in std::iter::once(&data).chain(randoms.as_ref()) {
         if c.rows_filtered > 0 {
             messages.push(format!(
