@@ -292,7 +292,7 @@ struct Parsed {
 /// Bytes per block of the parallel parser: large enough that the per-block costs (a task, a
 /// csv reader, a buffer) vanish, small enough that 2 x threads blocks in flight stay small
 /// against the columns themselves.
-const BLOCK_BYTES: usize = 512 * 1024;
+const BLOCK_BYTES: usize = 128 * 1024;
 
 /// One block parsed by a worker; lines and rows are local to the block.
 struct BlockOut {
