@@ -4,6 +4,7 @@
 //! baselines measured in the same run: an in-project single-tree count (kiddo within-radius query
 //! per point, then binning of the returned distances) and scipy's cKDTree.count_neighbors through
 //! scripts/bench_reference.py. A benchmark, not a test: nothing here asserts on timings.
+use super::on_threads;
 use crate::catalog::{read_catalogue, ColumnMap, RowFilter};
 use crate::cosmology::{Cosmology, DistanceTable};
 use crate::geometry::{positions, take_positions, Curvature};
@@ -275,11 +276,19 @@ fn config(metric: Metric, threads: usize) -> Result<CountConfig> {
     })
 }
 
-/// Read a file through the library and convert it to a point set.
-fn load(path: &Path, map: &ColumnMap, table: Option<&DistanceTable>) -> Result<PointSet> {
-    let mut cat = read_catalogue(path, map, &RowFilter::default())?;
-    // reuse the catalogue's columns: the catalogue and the point set never both exist
-    let pos = take_positions(&mut cat, table)?;
+/// Read a file through the library with `threads` threads and convert it to a point set.
+fn load(
+    path: &Path,
+    map: &ColumnMap,
+    table: Option<&DistanceTable>,
+    threads: usize,
+) -> Result<PointSet> {
+    // read and convert with `threads` threads; the conversion reuses the catalogue's columns
+    let (cat, pos) = on_threads(threads, || {
+        let mut cat = read_catalogue(path, map, &RowFilter::default())?;
+        let pos = take_positions(&mut cat, table)?;
+        Ok((cat, pos))
+    })?;
     Ok(PointSet {
         x: pos.x,
         y: pos.y,
@@ -533,7 +542,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
                     Metric::Euclidean
                 };
                 let run1 = |t: usize| -> Result<u64> {
-                    let p = load(&file, &cart, None)?;
+                    let p = load(&file, &cart, None, t)?;
                     let cfg = config(metric, t)?;
                     let ip = pairs::Indexed::new(p, "box", &cfg)?;
                     Ok(total_pairs(&pairs::count_auto_indexed(&ip, &cfg)?))
@@ -546,7 +555,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
                 let mut r = row(&name, vec![n], m, threads);
                 if opt.baselines {
                     let t = Instant::now();
-                    let p = load(&file, &cart, None)?;
+                    let p = load(&file, &cart, None, 1)?;
                     let read_s = t.elapsed().as_secs_f64();
                     add_refs(
                         &mut r,
@@ -586,8 +595,8 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         drop((gal, ran));
         let sky = ColumnMap::sky("RA", "DEC", "Z", vec![], None);
         let full = |t: usize| -> Result<u64> {
-            let g = load(&gfile, &sky, Some(&table))?;
-            let r = load(&rfile, &sky, Some(&table))?;
+            let g = load(&gfile, &sky, Some(&table), t)?;
+            let r = load(&rfile, &sky, Some(&table), t)?;
             let cfg = config(metric, t)?;
             // each catalogue indexed once, shared by the three counts
             let g = pairs::Indexed::new(g, "galaxies", &cfg)?;
@@ -609,7 +618,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
 
             // RR alone (for the baselines) and split RR
             let rr_full = |t: usize| -> Result<u64> {
-                let r = load(&rfile, &sky, Some(&table))?;
+                let r = load(&rfile, &sky, Some(&table), t)?;
                 let cfg = config(metric, t)?;
                 let r = pairs::Indexed::new(r, "randoms", &cfg)?;
                 Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
@@ -618,7 +627,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
             let mut rrow = row("survey RR", vec![nr], m, threads);
             if opt.baselines {
                 let t = Instant::now();
-                let rp = load(&rfile, &sky, Some(&table))?;
+                let rp = load(&rfile, &sky, Some(&table), 1)?;
                 let read_s = t.elapsed().as_secs_f64();
                 // the Python reference needs Cartesian positions: export the converted randoms
                 let xfile = dir.join("survey_randoms_xyz.csv");
@@ -631,7 +640,7 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         }
 
         if want(BenchPart::SplitRr) {
-            let rp = load(&rfile, &sky, Some(&table))?;
+            let rp = load(&rfile, &sky, Some(&table), threads)?;
             // Split RR against full RR, counting only (the file is read once, outside the timing:
             // reading is the same for both and would hide the ratio of the pair work), best of two.
             let split_count = |cfg: &CountConfig| -> Result<(f64, Option<f64>)> {
@@ -679,13 +688,13 @@ pub fn run(opt: &BenchOptions) -> Result<BenchReport> {
         // traversal, against one single-fiducial RR count; 1 thread, CPU seconds, both including
         // reading the file and the conversion to positions.
         let single = || -> Result<u64> {
-            let r = load(&rfile, &sky, Some(&table))?;
+            let r = load(&rfile, &sky, Some(&table), 1)?;
             let cfg = config(metric, 1)?;
             let r = pairs::Indexed::new(r, "randoms", &cfg)?;
             Ok(total_pairs(&pairs::count_auto_indexed(&r, &cfg)?))
         };
         let sweep5 = || -> Result<u64> {
-            let cat = read_catalogue(&rfile, &sky, &RowFilter::default())?;
+            let cat = on_threads(1, || read_catalogue(&rfile, &sky, &RowFilter::default()))?;
             let mut sets = Vec::new();
             let mut metrics = Vec::new();
             for ok in SWEEP_OMEGA_K {

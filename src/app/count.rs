@@ -477,12 +477,16 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     if opt.rr_splits == 0 {
         return Err(Error::input("--rr-splits must be >= 1"));
     }
-    let mut data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
-    let mut randoms = opt
-        .randoms
-        .as_ref()
-        .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
-        .transpose()?;
+    // the readers parse on the current pool: give them the count's threads
+    let (mut data, mut randoms) = super::on_threads(opt.threads, || {
+        let data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
+        let randoms = opt
+            .randoms
+            .as_ref()
+            .map(|p| read_catalogue(p, &opt.columns, &opt.filter))
+            .transpose()?;
+        Ok((data, randoms))
+    })?;
     for c in std::iter::once(&data).chain(randoms.as_ref()) {
         if c.rows_filtered > 0 {
             messages.push(format!(
@@ -647,15 +651,18 @@ pub fn prepare(opt: &CountOptions) -> Result<Prepared> {
     // the positions take over the catalogues' position columns (no second copy); only the
     // weights, regions and row counts of the catalogues are read after this
     let wd = WeightSums::from_weights(&data.w, &reg_d, n_regions)?;
-    let pos = take_positions(&mut data, table.as_ref())?;
-    let pd = point_set(&data, pos, reg_d);
-    let pr = match randoms.as_mut() {
-        Some(r) => {
-            let pos = take_positions(r, table.as_ref())?;
-            Some(point_set(r, pos, reg_r))
-        }
-        None => None,
-    };
+    let (pd, pr) = super::on_threads(opt.threads, || {
+        let pos = take_positions(&mut data, table.as_ref())?;
+        let pd = point_set(&data, pos, reg_d);
+        let pr = match randoms.as_mut() {
+            Some(r) => {
+                let pos = take_positions(r, table.as_ref())?;
+                Some(point_set(r, pos, reg_r))
+            }
+            None => None,
+        };
+        Ok((pd, pr))
+    })?;
     let wr = pr
         .as_ref()
         .map(|p| WeightSums::from_weights(&p.w, &p.region, n_regions))

@@ -12,6 +12,20 @@ pub mod run;
 pub mod sweep;
 pub mod xi;
 
+/// Run `f` on a pool of `threads` threads (0: rayon's default, all cores). The catalogue readers
+/// and the sky conversion work on the current rayon pool, so a command reads and converts with
+/// its own thread count.
+pub fn on_threads<T: Send>(
+    threads: usize,
+    f: impl FnOnce() -> crate::Result<T> + Send,
+) -> crate::Result<T> {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| crate::Error::resource(format!("cannot start {threads} worker threads: {e}")))?
+        .install(f)
+}
+
 /// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.
 pub fn resolve_threads(flag: Option<usize>) -> usize {
     if let Some(n) = flag.filter(|&n| n > 0) {

@@ -197,8 +197,13 @@ pub fn run(opt: &SweepOptions) -> Result<SweepSummary> {
             pairs::MAX_VARIANTS
         )));
     }
-    let data = read_catalogue(&opt.data, &opt.columns, &opt.filter)?;
-    let randoms = read_catalogue(&opt.randoms, &opt.columns, &opt.filter)?;
+    // the readers parse on the current pool: give them the sweep's threads
+    let (data, randoms) = super::on_threads(opt.threads, || {
+        Ok((
+            read_catalogue(&opt.data, &opt.columns, &opt.filter)?,
+            read_catalogue(&opt.randoms, &opt.columns, &opt.filter)?,
+        ))
+    })?;
     for c in [&data, &randoms] {
         if c.kind != CatalogueKind::Sky {
             return Err(Error::input(format!(

@@ -6,6 +6,7 @@
 use crate::catalog::{Catalogue, CatalogueKind};
 use crate::cosmology::{Cosmology, DistanceTable, C_KM_S};
 use crate::{Error, Result};
+use rayon::prelude::*;
 
 /// Spatial curvature of the fiducial, with the curvature radius in Mpc/h.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -191,13 +192,26 @@ pub fn take_positions(cat: &mut Catalogue, table: Option<&DistanceTable>) -> Res
             let table =
                 table.ok_or_else(|| Error::other("sky catalogue needs a distance table"))?;
             let (mut x, mut y, redshift) = (a, b, c);
-            let mut z = Vec::with_capacity(redshift.len());
-            for (i, &zr) in redshift.iter().enumerate() {
-                let p = sky_position(cat, table, i, x[i], y[i], zr)?;
-                x[i] = p[0];
-                y[i] = p[1];
-                z.push(p[2]);
-            }
+            let mut z = vec![0.0; redshift.len()];
+            // row by row in chunks on the current rayon pool (each value depends on its row
+            // alone); the first error in row order is reported, as the serial loop would
+            const CHUNK: usize = 1 << 14;
+            let cat = &*cat;
+            let errors: Vec<Result<()>> = x
+                .par_chunks_mut(CHUNK)
+                .zip(y.par_chunks_mut(CHUNK))
+                .zip(z.par_chunks_mut(CHUNK))
+                .zip(redshift.par_chunks(CHUNK))
+                .enumerate()
+                .map(|(k, (((x, y), z), zr))| {
+                    for j in 0..zr.len() {
+                        let p = sky_position(cat, table, k * CHUNK + j, x[j], y[j], zr[j])?;
+                        (x[j], y[j], z[j]) = (p[0], p[1], p[2]);
+                    }
+                    Ok(())
+                })
+                .collect();
+            errors.into_iter().collect::<Result<()>>()?;
             Ok(Positions { x, y, z, redshift })
         }
     }
@@ -413,5 +427,41 @@ mod tests {
             .to_string();
         assert_eq!(e1, e2);
         assert!(e2.contains("cat.csv: row 2"), "{e2}");
+    }
+
+    // The conversion runs in chunks on the current pool: for any thread count the same bits as
+    // the copying conversion, and of two bad rows in different chunks the first is reported.
+    #[test]
+    fn take_positions_is_thread_independent() {
+        let table = DistanceTable::new(&Cosmology::planck18(), 1.5).unwrap();
+        let n = 40_000;
+        let col = |f: &dyn Fn(usize) -> f64| (0..n).map(f).collect::<Vec<_>>();
+        let ra = col(&|i| (i as f64 * 0.618_033_988_7).fract() * 360.0);
+        let dec = col(&|i| (i as f64 * 0.414_213_562_3).fract() * 180.0 - 90.0);
+        let z = col(&|i| 0.05 + (i as f64 * 0.732_050_807_5).fract());
+        let sky = catalogue(CatalogueKind::Sky, [ra, dec, z]);
+        let want = positions(&sky, Some(&table)).unwrap();
+        let bits = |v: &[f64]| v.iter().map(|x| x.to_bits()).collect::<Vec<_>>();
+        for t in [1, 2, 7] {
+            let pool = rayon::ThreadPoolBuilder::new()
+                .num_threads(t)
+                .build()
+                .unwrap();
+            let mut c = sky.clone();
+            let got = pool
+                .install(|| take_positions(&mut c, Some(&table)))
+                .unwrap();
+            for (g, w) in [(&got.x, &want.x), (&got.y, &want.y), (&got.z, &want.z)] {
+                assert_eq!(bits(g), bits(w), "{t} threads");
+            }
+            let mut bad = sky.clone();
+            bad.pos[2][35_000] = 9.0;
+            bad.pos[2][20_001] = 8.0;
+            let e = pool
+                .install(|| take_positions(&mut bad, Some(&table)))
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains("row 20002:"), "{t} threads: {e}");
+        }
     }
 }
