@@ -425,8 +425,8 @@ impl Quant {
 /// Pairs the two-stage SIMD kernels buffer before they accumulate them (the buffer holds one
 /// more vector of slack for full-width stores of compressed lanes).
 pub(crate) const PAIR_BUF: usize = 2048;
-/// Bytes of that pair buffer: four columns (q, w1 w2, mean z, pair indices).
-const PAIR_BUF_BYTES: usize = 4 * 8 * (PAIR_BUF + LANES);
+/// Bytes of that pair buffer: five columns (q, w1 w2, mean z, pair indices, s).
+const PAIR_BUF_BYTES: usize = 5 * 8 * (PAIR_BUF + LANES);
 
 /// Lanes of the SIMD lane histograms (slot `bin * LANES + lane`).
 pub(crate) const LANES: usize = 8;

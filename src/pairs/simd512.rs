@@ -6,11 +6,13 @@
 //! 1. test: eight pairs per step, the quadratic form q and the in-range mask; the accepted
 //!    lanes are compressed into a pair buffer (q, and w1 w2, the mean redshift and the pair's
 //!    indices where they are needed);
-//! 2. accumulate: eight buffered pairs per step, s, the bin (edges rebuilt in registers for
-//!    linear bins, else the table with one exact compare) and the quantised terms, then a
-//!    branch-free scalar pass adds the eight lanes into per-lane integer histograms (lane k
-//!    writes slot `bin * 8 + k`, so lanes of one step never alias; tail lanes go to a spare
-//!    slot). Gathers and scatters for this pass were no faster on the development machine.
+//! 2. accumulate: outside curved metrics s of all buffered pairs first (`sqrt_rn`, bitwise
+//!    vsqrtpd but cheaper); then eight buffered pairs per step, s, the bin (edges rebuilt in
+//!    registers for linear bins, else the table with one exact compare) and the quantised
+//!    terms, then a branch-free scalar pass adds the eight lanes into per-lane integer
+//!    histograms (lane k writes slot `bin * 8 + k`, so lanes of one step never alias; tail
+//!    lanes go to a spare slot). Gathers and scatters for this pass were no faster on the
+//!    development machine.
 //!
 //! Each pair term is quantised exactly as `Quant::fix_*` do (multiply by 2^frac, convert with
 //! the default round-to-nearest-even) from the same f64 expressions as the reference kernel, and
@@ -30,12 +32,14 @@ pub(crate) struct PairBuf {
     pub(super) w: Vec<f64>,
     pub(super) z: Vec<f64>,
     pub(super) ij: Vec<u64>,
+    /// s of the buffered pairs outside curved metrics (stage 2 computes it in a pass of its own)
+    pub(super) s: Vec<f64>,
 }
 
 impl PairBuf {
     pub(super) fn ensure(&mut self) {
         if self.q.len() < BUF + LANES {
-            for v in [&mut self.q, &mut self.w, &mut self.z] {
+            for v in [&mut self.q, &mut self.w, &mut self.z, &mut self.s] {
                 v.resize(BUF + LANES, 0.0);
             }
             self.ij.resize(BUF + LANES, 0);
@@ -102,7 +106,7 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
             live &= live - 1;
             let j0 = if lp.same { i + 1 } else { lp.b0 };
             if n + (lp.b1 - j0) > BUF {
-                accumulate::<K, LIN, UW, ZZ>(&buf, n, a, b, g, bn, acc);
+                accumulate::<K, LIN, UW, ZZ>(&mut buf, n, a, b, g, bn, acc);
                 n = 0;
             }
             let ax = _mm512_set1_pd(a.c[0][i]);
@@ -171,7 +175,7 @@ pub(crate) unsafe fn leaf<const K: u8, const LIN: bool, const UW: bool, const ZZ
             }
         }
     }
-    accumulate::<K, LIN, UW, ZZ>(&buf, n, a, b, g, bn, acc);
+    accumulate::<K, LIN, UW, ZZ>(&mut buf, n, a, b, g, bn, acc);
     acc.buf = buf;
 }
 
@@ -221,7 +225,7 @@ unsafe fn live_rows<const K: u8>(a: &Pts, r0: usize, lanes: u8, lp: &LeafPair, g
 /// Stage 2: add the `n` buffered pairs to the lane histograms.
 #[target_feature(enable = "avx512f,avx512dq,popcnt")]
 unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: bool>(
-    buf: &PairBuf,
+    buf: &mut PairBuf,
     n: usize,
     a: &Pts,
     b: &Pts,
@@ -256,6 +260,33 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
     let one = _mm512_set1_epi64(1);
     let trash_v = _mm512_set1_epi64(bn.nb as i64);
     let (qp, wp, zp) = (buf.q.as_ptr(), buf.w.as_ptr(), buf.z.as_ptr());
+    let sp = buf.s.as_mut_ptr();
+    if !curved {
+        // s of all pairs first, in a loop of independent steps (in the binning loop the ~35
+        // cycle latency of `sqrt_rn` would stall it); two vectors of three take `sqrt_rn` (FMA
+        // ports), the third vsqrtpd (the divider, otherwise idle): faster than either alone.
+        // Full-width loads stay within the buffer (BUF + LANES); slack lanes are don't-care.
+        let mut e = 0;
+        while e + 3 * LANES <= n {
+            for k in [0, LANES] {
+                let q = _mm512_loadu_pd(qp.add(e + k));
+                _mm512_storeu_pd(sp.add(e + k), sqrt_rn(q, 0xff));
+            }
+            let q = _mm512_loadu_pd(qp.add(e + 2 * LANES));
+            _mm512_storeu_pd(sp.add(e + 2 * LANES), _mm512_sqrt_pd(q));
+            e += 3 * LANES;
+        }
+        while e < n {
+            let care = if n - e >= LANES {
+                0xff
+            } else {
+                ((1u32 << (n - e)) - 1) as u8
+            };
+            let q = _mm512_loadu_pd(qp.add(e));
+            _mm512_storeu_pd(sp.add(e), sqrt_rn(q, care));
+            e += LANES;
+        }
+    }
     let regions = acc.nreg > 0;
     let mut cells = [0i64; LANES];
     let mut qs = [0f64; LANES];
@@ -308,7 +339,7 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
                 let a = _mm512_add_pd(x, _mm512_mul_pd(x, _mm512_mul_pd(x2, p)));
                 _mm512_mul_pd(two_r, a)
             } else {
-                _mm512_sqrt_pd(q)
+                _mm512_maskz_loadu_pd(lm, sp.add(e))
             };
             if LIN {
                 // bin from s, then one exact q-space compare each way against edges rebuilt
@@ -380,5 +411,200 @@ unsafe fn accumulate<const K: u8, const LIN: bool, const UW: bool, const ZZ: boo
             e += LANES;
         }
         e0 = e1;
+    }
+}
+
+/// Smallest q whose square root takes the fast path of `sqrt_rn` (2^-900): above it every product
+/// in the check stays normal, so it is exact.
+const SQRT_TINY: f64 = f64::from_bits((1023 - 900) << 52);
+
+/// Correctly rounded square root, bitwise `_mm512_sqrt_pd` (and `f64::sqrt`) for every input,
+/// cheaper than vsqrtpd: a candidate from the rsqrt14 seed, checked exactly; only lanes that
+/// fail the check (q < 2^-900, 0, inf, NaN, and sqrt q within ~2^-27 ulp of a midpoint: none of
+/// 6.4e7 random q on the development machine) take vsqrtpd.
+/// Lanes outside `care` are left unspecified (they never take the fallback).
+#[inline]
+#[target_feature(enable = "avx512f,avx512dq")]
+pub(super) unsafe fn sqrt_rn(q: __m512d, care: __mmask8) -> __m512d {
+    let s = sqrt_candidate(q);
+    let redo = care & !sqrt_verified(q, s);
+    if redo == 0 {
+        s
+    } else {
+        _mm512_mask_sqrt_pd(s, redo, q)
+    }
+}
+
+/// sqrt(q) within a few 2^-27 ulp before its final rounding (so correctly rounded unless sqrt q
+/// lies that close to a midpoint), for 2^-900 <= q < inf. Seed y0 = rsqrt14 (rel. error
+/// e0 < 2^-14); one coupled Newton step on s ~ sqrt q, h ~ 1/(2 sqrt q): r = 1/2 - s h, then
+/// s, h *= 1 + r (error ~1.5 e0^2 < 2^-27); then two residual corrections s += (q - s^2) h,
+/// each of which multiplies the error by ~e(h) (the residual is one exact fma).
+#[inline]
+#[target_feature(enable = "avx512f,avx512dq")]
+unsafe fn sqrt_candidate(q: __m512d) -> __m512d {
+    let half = _mm512_set1_pd(0.5);
+    let y = _mm512_rsqrt14_pd(q);
+    let (s, h) = (_mm512_mul_pd(q, y), _mm512_mul_pd(half, y));
+    let r = _mm512_fnmadd_pd(s, h, half);
+    let (s, h) = (_mm512_fmadd_pd(s, r, s), _mm512_fmadd_pd(h, r, h));
+    let s = _mm512_fmadd_pd(_mm512_fnmadd_pd(s, s, q), h, s);
+    _mm512_fmadd_pd(_mm512_fnmadd_pd(s, s, q), h, s)
+}
+
+/// Lanes where s = RN(sqrt q) is proven (exact test, whatever the candidate's accuracy, given
+/// s > 0 normal and q >= 2^-900; false for q below that, inf or NaN).
+///
+/// With d = s - next_down(s), u = next_up(s) - s >= d (both exact) and R = q - s^2 (exact
+/// real), s is wrong iff sqrt q lies beyond a midpoint (never on one: an odd 54-bit significand
+/// squared is no double): R <= -s d + d^2/4 or R > s u + u^2/4. s is a multiple of d, s^2 and q
+/// (near s^2) of d^2, so the first means R <= -s d; either way |R| >= s d =: b. b is exact (d a
+/// power of two, no underflow) and rounding is monotonic, so |fma(-s, s, q)| >= b too: the test
+/// |fma(-s, s, q)| < b rejects every wrong s. A correct s has -s d < R <= s u <= 2^53 d^2 (so
+/// the fma is exact), and R < b unless R = s u, i.e. q = s next_up(s) exactly (rare; the
+/// fallback takes it): the test accepts it.
+#[inline]
+#[target_feature(enable = "avx512f,avx512dq")]
+unsafe fn sqrt_verified(q: __m512d, s: __m512d) -> __mmask8 {
+    let one = _mm512_set1_epi64(1);
+    let dn = _mm512_castsi512_pd(_mm512_sub_epi64(_mm512_castpd_si512(s), one));
+    let b = _mm512_mul_pd(s, _mm512_sub_pd(s, dn));
+    let r = _mm512_abs_pd(_mm512_fnmadd_pd(s, s, q));
+    let dom = _mm512_cmp_pd_mask::<_CMP_GE_OQ>(q, _mm512_set1_pd(SQRT_TINY));
+    _mm512_mask_cmp_pd_mask::<_CMP_LT_OQ>(dom, r, b)
+}
+
+#[cfg(test)]
+mod tests {
+    //! `sqrt_rn` against `f64::sqrt` (IEEE 754 correctly rounded square root) bitwise, and the
+    //! exact check against candidates one ulp off.
+    use super::super::kernel::Simd;
+    use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    fn up(x: f64) -> f64 {
+        f64::from_bits(x.to_bits() + 1)
+    }
+    fn down(x: f64) -> f64 {
+        f64::from_bits(x.to_bits() - 1)
+    }
+
+    /// Checks every q bitwise; returns the number of lanes the fast path took.
+    fn check(qs: &[f64]) -> usize {
+        let mut fast = 0;
+        for c in qs.chunks(LANES) {
+            let mut v = [0.0; LANES];
+            v[..c.len()].copy_from_slice(c);
+            let (mut got, mut cand) = ([0.0; LANES], [0.0; LANES]);
+            let ok = unsafe {
+                let q = _mm512_loadu_pd(v.as_ptr());
+                _mm512_storeu_pd(got.as_mut_ptr(), sqrt_rn(q, 0xff));
+                let s = sqrt_candidate(q);
+                _mm512_storeu_pd(cand.as_mut_ptr(), s);
+                sqrt_verified(q, s)
+            };
+            for k in 0..c.len() {
+                let want = v[k].sqrt();
+                let same = got[k].to_bits() == want.to_bits() || (got[k].is_nan() && want.is_nan());
+                assert!(same, "q {:e}: {:e} vs {want:e}", v[k], got[k]);
+                if (ok >> k) & 1 != 0 {
+                    assert_eq!(cand[k].to_bits(), want.to_bits(), "accepted q {:e}", v[k]);
+                    fast += 1;
+                }
+            }
+        }
+        fast
+    }
+
+    /// Verification of s = sqrt q (accepted unless q = s next_up(s)) and of its two neighbours
+    /// (always rejected), for q in the fast domain.
+    fn check_verify(qs: &[f64]) {
+        for c in qs.chunks(LANES) {
+            let mut v = [1.0; LANES];
+            v[..c.len()].copy_from_slice(c);
+            let s: [f64; LANES] = v.map(f64::sqrt);
+            let ok = |f: fn(f64) -> f64| unsafe {
+                let t = s.map(f);
+                sqrt_verified(_mm512_loadu_pd(v.as_ptr()), _mm512_loadu_pd(t.as_ptr()))
+            };
+            let (ok0, oku, okd) = (ok(|x| x), ok(up), ok(down));
+            for k in 0..c.len() {
+                let on_product = s[k].mul_add(up(s[k]), -v[k]) == 0.0;
+                assert!((ok0 >> k) & 1 != 0 || on_product, "rejected q {:e}", v[k]);
+                assert_eq!(
+                    ((oku | okd) >> k) & 1,
+                    0,
+                    "accepted a neighbour, q {:e}",
+                    v[k]
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn sqrt_rn_is_correctly_rounded() {
+        if !Simd::Avx512.supported() {
+            return;
+        }
+        let mut rng = ChaCha8Rng::seed_from_u64(17);
+        let n = 3_000_000;
+        // (a) log-uniform over [1e-6, 1e6], uniform over the counted range [0, 200^2]
+        let log: Vec<f64> = (0..n)
+            .map(|_| 10f64.powf(rng.gen_range(-6.0..6.0)))
+            .collect();
+        let lin: Vec<f64> = (0..n).map(|_| rng.gen_range(0.0..40_000.0)).collect();
+        for qs in [&log, &lin] {
+            check_verify(qs);
+            let fast = check(qs);
+            // the fast path must carry nearly all of them (common practice, no source)
+            assert!(fast as f64 > 0.9999 * n as f64, "{fast} of {n}");
+        }
+        // (b) exact squares (s with <= 26 significant bits), rounded squares, their neighbours
+        let mut qs = Vec::new();
+        for _ in 0..500_000 {
+            let k = rng.gen_range(1u64..1 << 26) as f64;
+            let e = rng.gen_range(-60..40);
+            let s = k * 2f64.powi(e);
+            let t = rng.gen_range(0.0..200.0f64);
+            let t2 = t * t;
+            qs.extend([s * s, up(s * s), down(s * s), t2, up(t2), down(t2)]);
+        }
+        check_verify(&qs);
+        check(&qs);
+        // (c) powers of two and neighbours over the whole range, signed zeros, subnormals,
+        // around the fast-path bound, inf, NaN, negatives
+        let mut qs = vec![0.0, -0.0, f64::INFINITY, f64::NAN, -1.0, -f64::MIN_POSITIVE];
+        qs.extend([
+            f64::MAX,
+            down(f64::MAX),
+            f64::MIN_POSITIVE,
+            down(f64::MIN_POSITIVE),
+        ]);
+        for e in -1074..=1023 {
+            let p = 2f64.powi(e);
+            qs.extend([p, up(p), up(up(p)), down(p), down(down(p)), 3.0 * p]);
+        }
+        for _ in 0..100_000 {
+            qs.push(f64::from_bits(rng.gen_range(1..1u64 << 52)));
+            qs.push(SQRT_TINY * rng.gen_range(0.5..2.0));
+        }
+        check(&qs);
+        // (d) squared edges of linear and uneven bins, and a few ulps around them
+        let mut qs = Vec::new();
+        let edges = (0..=40).map(|k| 5.0 * k as f64);
+        let edges = edges.chain((0..=300).map(|k| 1.5 + 0.7 * k as f64));
+        for e in edges.chain((0..=16).map(|i| 2.0 + 0.4 * (i * i) as f64)) {
+            let q = e * e;
+            for d in -4i64..=4 {
+                qs.push(f64::from_bits((q.to_bits() as i64 + d) as u64));
+            }
+        }
+        check(&qs);
+        let pos: Vec<f64> = qs
+            .into_iter()
+            .filter(|&q| q >= SQRT_TINY && q.is_finite())
+            .collect();
+        check_verify(&pos);
     }
 }
