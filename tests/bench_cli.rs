@@ -1,18 +1,16 @@
 //! Smoke test of `ringscale bench --quick`: it runs, writes valid JSON with every workload, and
 //! its in-run baselines agree with the engine on the number of pairs (kiddo within-radius query;
 //! common practice, no source). No timing is asserted.
+use std::path::Path;
 use std::process::Command;
 
-#[test]
-fn bench_quick_writes_json() {
-    let dir = tempfile::tempdir().unwrap();
-    let out = dir.path().join("bench.json");
-    let work = dir.path().join("work");
+/// Run `ringscale bench ARGS --out OUT`, require success, and return the JSON report.
+fn bench_json(args: &[&str], out: &Path) -> serde_json::Value {
     let st = Command::new(env!("CARGO_BIN_EXE_ringscale"))
-        .args(["bench", "--quick", "--threads", "2", "--out"])
-        .arg(&out)
-        .arg("--workdir")
-        .arg(&work)
+        .arg("bench")
+        .args(args)
+        .arg("--out")
+        .arg(out)
         .output()
         .unwrap();
     assert!(
@@ -20,8 +18,16 @@ fn bench_quick_writes_json() {
         "bench failed: {}",
         String::from_utf8_lossy(&st.stderr)
     );
-    let v: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    serde_json::from_str(&std::fs::read_to_string(out).unwrap()).unwrap()
+}
+
+#[test]
+fn bench_quick_writes_json() {
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("bench.json");
+    let work = dir.path().join("work");
+    let w = work.to_str().unwrap();
+    let v = bench_json(&["--quick", "--threads", "2", "--workdir", w], &out);
     let rows = v["rows"].as_array().unwrap();
     let names: Vec<&str> = rows
         .iter()
@@ -60,26 +66,7 @@ fn bench_quick_writes_json() {
 fn bench_only_runs_the_chosen_part() {
     let dir = tempfile::tempdir().unwrap();
     let out = dir.path().join("bench.json");
-    let st = Command::new(env!("CARGO_BIN_EXE_ringscale"))
-        .args([
-            "bench",
-            "--quick",
-            "--threads",
-            "2",
-            "--only",
-            "split-rr",
-            "--out",
-        ])
-        .arg(&out)
-        .output()
-        .unwrap();
-    assert!(
-        st.status.success(),
-        "bench failed: {}",
-        String::from_utf8_lossy(&st.stderr)
-    );
-    let v: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    let v = bench_json(&["--quick", "--threads", "2", "--only", "split-rr"], &out);
     // no box or survey rows, no sweep, but the split-RR ratios
     assert!(v["rows"].as_array().unwrap().is_empty(), "{v}");
     assert!(v["sweep5_time_ratio"].is_null(), "{v}");
@@ -87,15 +74,15 @@ fn bench_only_runs_the_chosen_part() {
     assert!(v["split_rr_time_ratio_1t"].as_f64().unwrap() > 0.0);
 
     // boxes only, without the baselines
-    let st = Command::new(env!("CARGO_BIN_EXE_ringscale"))
-        .args(["bench", "--quick", "--threads", "2", "--only", "boxes"])
-        .args(["--no-baselines", "--out"])
-        .arg(&out)
-        .output()
-        .unwrap();
-    assert!(st.status.success());
-    let v: serde_json::Value =
-        serde_json::from_str(&std::fs::read_to_string(&out).unwrap()).unwrap();
+    let args = [
+        "--quick",
+        "--threads",
+        "2",
+        "--only",
+        "boxes",
+        "--no-baselines",
+    ];
+    let v = bench_json(&args, &out);
     let rows = v["rows"].as_array().unwrap();
     assert_eq!(rows.len(), 2, "{v}");
     for r in rows {

@@ -486,8 +486,9 @@ mod tests {
     fn up(x: f64) -> f64 {
         f64::from_bits(x.to_bits() + 1)
     }
+    /// next_down for x >= 0 (0 stays 0)
     fn down(x: f64) -> f64 {
-        f64::from_bits(x.to_bits() - 1)
+        f64::from_bits(x.to_bits().saturating_sub(1))
     }
 
     /// Checks every q bitwise; returns the number of lanes the fast path took.
@@ -581,8 +582,13 @@ mod tests {
             f64::MIN_POSITIVE,
             down(f64::MIN_POSITIVE),
         ]);
-        for e in -1074..=1023 {
-            let p = 2f64.powi(e);
+        for e in -1074i32..=1023 {
+            // 2^e built from its bits (powi underflows to 0 for the smallest subnormals)
+            let p = if e >= -1022 {
+                f64::from_bits(((e + 1023) as u64) << 52)
+            } else {
+                f64::from_bits(1u64 << (e + 1074))
+            };
             qs.extend([p, up(p), up(up(p)), down(p), down(down(p)), 3.0 * p]);
         }
         for _ in 0..100_000 {
