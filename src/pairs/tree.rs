@@ -5,10 +5,11 @@ use super::kernel::{CLO, OPE, PER};
 /// Maximum points per leaf bucket. Inside a leaf the points are further ordered into compact
 /// blocks of 8 (`order_blocks`), the SIMD step of the leaf kernel, whose steps with no pair in
 /// range are cheap: a leaf then does little more pair work than eight-point leaves would,
-/// without their node visits and kernel calls, at any density. (Measured, 2e5 and 2e4 points
-/// in a survey cap, s_max = 200 Mpc/h: block order saves 5-10%; with it, leaves of 48-128
-/// points were a further 5% faster than 32, and 16 were 10% slower.)
-pub(crate) const LEAF_SIZE: usize = 32;
+/// without their node visits and kernel calls, at any density. (Measured, s_max = 200 Mpc/h,
+/// 1 thread: block order saves 5-10%; against 32-point leaves, 128 made the 1e5-point box count
+/// 10% faster, split RR of 2e6 survey randoms (ten 2e5-point subsets) 10-15% faster, full RR of
+/// the 2e6 and 2e5 randoms the same within noise; 64 lay in between; 16 was 10-30% slower.)
+pub(crate) const LEAF_SIZE: usize = 128;
 /// Points per block inside a leaf (the kernel's lane count).
 const BLOCK: usize = 8;
 
