@@ -19,11 +19,7 @@ pub fn on_threads<T: Send>(
     threads: usize,
     f: impl FnOnce() -> crate::Result<T> + Send,
 ) -> crate::Result<T> {
-    rayon::ThreadPoolBuilder::new()
-        .num_threads(threads)
-        .build()
-        .map_err(|e| crate::Error::resource(format!("cannot start {threads} worker threads: {e}")))?
-        .install(f)
+    crate::pairs::build_pool(threads)?.install(f)
 }
 
 /// How many threads to use: the flag, else SLURM_CPUS_PER_TASK, else all cores.

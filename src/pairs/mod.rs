@@ -592,7 +592,8 @@ impl Walker<'_> {
     }
 }
 
-fn build_pool(threads: usize) -> crate::Result<rayon::ThreadPool> {
+/// A pool of `threads` workers (0: rayon's default); failure to start one is a resource error.
+pub(crate) fn build_pool(threads: usize) -> crate::Result<rayon::ThreadPool> {
     rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
